@@ -8,7 +8,7 @@ id), a ``message`` for a person and free-form ``details``.
 
 from __future__ import annotations
 
-from enum import Enum
+from enum import StrEnum
 from typing import Any
 
 import pandas as pd
@@ -17,7 +17,7 @@ from pydantic import BaseModel, ConfigDict, Field
 __all__ = ["Severity", "Finding", "findings_frame"]
 
 
-class Severity(str, Enum):
+class Severity(StrEnum):
     """How much a finding matters for analysis."""
 
     info = "info"

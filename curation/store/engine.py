@@ -142,11 +142,10 @@ class Store:
     @contextmanager
     def reading(self) -> Iterator[Session]:
         """Yield a session for reading; nothing it does is committed."""
+        # Closing without commit discards the transaction but, unlike
+        # rollback(), leaves loaded objects readable after the block.
         with self._sessions() as session:
-            try:
-                yield session
-            finally:
-                session.rollback()
+            yield session
 
     def display_url(self) -> str:
         """Return the URL with any password hidden, for messages and logs."""
@@ -204,6 +203,16 @@ def create_store(store: str | os.PathLike[str] | None = None) -> Store:
     return open_store(url)
 
 
+def _require_existing_file(url: str) -> None:
+    # Connecting to a missing SQLite file would silently create an empty one.
+    if url.startswith("sqlite:///") and not Path(url.removeprefix("sqlite:///")).exists():
+        raise StoreError(
+            f"there is no store at {url.removeprefix('sqlite:///')!r}",
+            hint="create one with `tipledger create-store`, or point --store "
+            f"(or ${STORE_ENV}) at an existing one",
+        )
+
+
 def open_store(store: str | os.PathLike[str] | None = None) -> Store:
     """Open an existing store whose schema matches this version of tipledger.
 
@@ -213,12 +222,7 @@ def open_store(store: str | os.PathLike[str] | None = None) -> Store:
             ``tipledger upgrade-store``) or newer than this code.
     """
     url = resolve_url(store)
-    if url.startswith("sqlite:///") and not Path(url.removeprefix("sqlite:///")).exists():
-        raise StoreError(
-            f"there is no store at {url.removeprefix('sqlite:///')!r}",
-            hint="create one with `tipledger create-store`, or point --store "
-            f"(or ${STORE_ENV}) at an existing one",
-        )
+    _require_existing_file(url)
     engine = _make_engine(url)
     revision = _current_revision(engine)
     head = _head_revision()
@@ -237,8 +241,7 @@ def open_store(store: str | os.PathLike[str] | None = None) -> Store:
                 hint="upgrade tipledger to a version that knows this schema",
             )
         raise SchemaVersionError(
-            f"the store's schema version {revision!r} is older than this "
-            f"tipledger's ({head!r})",
+            f"the store's schema version {revision!r} is older than this tipledger's ({head!r})",
             hint="back up the store, then run `tipledger upgrade-store`",
         )
     return Store(url, engine)
@@ -255,6 +258,7 @@ def upgrade_store(store: str | os.PathLike[str] | None = None) -> tuple[str, str
         StoreError: there is no store at that place.
     """
     url = resolve_url(store)
+    _require_existing_file(url)
     engine = _make_engine(url)
     before = _current_revision(engine)
     if before is None:

@@ -152,9 +152,7 @@ class Measurement(Base):
 
     __tablename__ = "measurements"
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    trait_source_id: Mapped[int] = mapped_column(
-        ForeignKey("trait_sources.id"), index=True
-    )
+    trait_source_id: Mapped[int] = mapped_column(ForeignKey("trait_sources.id"), index=True)
     row_number: Mapped[int] = mapped_column(Integer)
     written_name: Mapped[str] = mapped_column(Text, index=True)
     specimen_id: Mapped[str | None] = mapped_column(Text)

@@ -1,0 +1,62 @@
+"""Reading the name decisions in force.
+
+A written name can have many decisions for one tree set; the latest (the
+highest id) is in force and the earlier ones are kept as history.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from curation.store.models import NameDecision
+
+__all__ = ["DECISION_COLUMNS", "current_decisions"]
+
+DECISION_COLUMNS = [
+    "decision_id",
+    "written_name",
+    "tip_label",
+    "status",
+    "stage",
+    "score",
+    "runner_up",
+    "margin",
+    "decided_by",
+    "decided_at",
+    "note",
+]
+
+
+def current_decisions(session: Session, tree_set_id: int) -> pd.DataFrame:
+    """Return the decision in force for each written name of a tree set.
+
+    Returns:
+        A DataFrame with :data:`DECISION_COLUMNS`, one row per written name,
+        sorted by written name. ``status`` is accepted, rejected or pending;
+        ``tip_label`` is the tip an accepted decision maps the name to.
+    """
+    latest = (
+        select(func.max(NameDecision.id))
+        .where(NameDecision.tree_set_id == tree_set_id)
+        .group_by(NameDecision.written_name)
+    )
+    rows = session.execute(
+        select(
+            NameDecision.id,
+            NameDecision.written_name,
+            NameDecision.tip_label,
+            NameDecision.status,
+            NameDecision.stage,
+            NameDecision.score,
+            NameDecision.runner_up,
+            NameDecision.margin,
+            NameDecision.decided_by,
+            NameDecision.decided_at,
+            NameDecision.note,
+        )
+        .where(NameDecision.id.in_(latest))
+        .order_by(NameDecision.written_name)
+    ).all()
+    return pd.DataFrame(rows, columns=DECISION_COLUMNS)

@@ -1,0 +1,88 @@
+"""The store: schema from migrations only, version checks, the ledger."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from alembic.autogenerate import compare_metadata
+from alembic.runtime.migration import MigrationContext
+from sqlalchemy import select, text
+
+from curation.errors import SchemaVersionError, StoreError
+from curation.store import Store, create_store, open_store, record_event, upgrade_store
+from curation.store.models import Base, LedgerEvent
+
+
+def test_models_and_migrations_agree(store: Store) -> None:
+    # Alembic's autogenerate comparison is the outside judge here: a store
+    # built by the migrations must show no difference to the ORM models.
+    with store.engine.connect() as connection:
+        context = MigrationContext.configure(connection, opts={"compare_type": True})
+        differences = compare_metadata(context, Base.metadata)
+    assert differences == []
+
+
+def test_sqlite_store_uses_wal_and_foreign_keys(tmp_path: Path) -> None:
+    with create_store(tmp_path / "a.db") as opened, opened.engine.connect() as connection:
+        assert connection.execute(text("PRAGMA journal_mode")).scalar() == "wal"
+        assert connection.execute(text("PRAGMA foreign_keys")).scalar() == 1
+
+
+def test_create_store_twice_is_harmless(tmp_path: Path) -> None:
+    create_store(tmp_path / "a.db").close()
+    with create_store(tmp_path / "a.db") as again, again.reading() as session:
+        assert session.scalars(select(LedgerEvent)).all() == []
+
+
+def test_missing_store_is_refused_and_not_created(tmp_path: Path) -> None:
+    missing = tmp_path / "missing.db"
+    with pytest.raises(StoreError, match="no store at") as info:
+        open_store(missing)
+    assert "create-store" in str(info.value)
+    with pytest.raises(StoreError):
+        upgrade_store(missing)
+    assert not missing.exists()
+
+
+def test_store_newer_than_code_is_refused(store: Store) -> None:
+    with store.engine.begin() as connection:
+        connection.execute(text("UPDATE alembic_version SET version_num = 'f00dfeed9999'"))
+    with pytest.raises(SchemaVersionError, match="newer") as info:
+        open_store(store.url)
+    assert "f00dfeed9999" in str(info.value)
+    with pytest.raises(SchemaVersionError, match="newer"):
+        upgrade_store(store.url)
+
+
+def test_foreign_database_is_not_taken_over(tmp_path: Path) -> None:
+    import sqlite3
+
+    path = tmp_path / "other.db"
+    with sqlite3.connect(path) as connection:
+        connection.execute("CREATE TABLE expenses (amount REAL)")
+    with pytest.raises(StoreError, match="not a tipledger store"):
+        open_store(path)
+    with pytest.raises(StoreError, match="expenses"):
+        create_store(path)
+
+
+def test_transaction_rolls_back_everything_on_error(store: Store) -> None:
+    with pytest.raises(RuntimeError), store.transaction() as session:
+        record_event(session, "import", summary="half done")
+        raise RuntimeError("interrupted")
+    with store.reading() as session:
+        assert session.scalars(select(LedgerEvent)).all() == []
+
+
+def test_ledger_records_who_and_when(store: Store, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1700000000")
+    with store.transaction() as session:
+        record_event(session, "import", subject="a.nex", parameters={"burn_in": 10})
+    with store.reading() as session:
+        (event,) = session.scalars(select(LedgerEvent)).all()
+    assert event.who == "test-curator"
+    assert event.parameters == {"burn_in": 10}
+    # 1700000000 s after the epoch is 2023-11-14T22:13:20Z (checked with
+    # `date -u -d @1700000000`, GNU coreutils).
+    assert event.at.replace(tzinfo=None).isoformat() == "2023-11-14T22:13:20"
