@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 from curation.cli.app import StoreOption, app, console
-from curation.store import create_store, upgrade_store
+from curation.cli.output import print_counts, print_frame
+from curation.store import create_store, open_store, upgrade_store
+from curation.store.summary import list_sources, list_traits, list_tree_sets, summarise_store
 
 
 @app.command("create-store")
@@ -27,3 +29,18 @@ def upgrade_store_command(store: StoreOption = None) -> None:
         console.print(f"The store is already at schema version {after}.")
     else:
         console.print(f"Upgraded the store from schema version {before} to {after}.")
+
+
+@app.command("show-store")
+def show_store_command(store: StoreOption = None) -> None:
+    """Show what the store holds: sources, tree sets, traits and counts of
+    measurements, decisions, findings and ledger events.
+
+    Example: tipledger show-store --store lab.db
+    """
+    with open_store(store) as opened:
+        summary = summarise_store(opened)
+        print_frame("Sources", list_sources(opened))
+        print_frame("Tree sets", list_tree_sets(opened))
+        print_frame("Traits", list_traits(opened))
+    print_counts(summary.model_dump())

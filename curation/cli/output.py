@@ -1,0 +1,37 @@
+"""Printing library results in the terminal: DataFrames as tables."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pandas as pd
+from rich.table import Table
+
+from curation.cli.app import console
+
+__all__ = ["print_counts", "print_frame"]
+
+
+def print_frame(title: str, frame: pd.DataFrame, *, limit: int = 50) -> None:
+    """Print up to ``limit`` rows of ``frame`` as a table titled ``title``."""
+    if frame.empty:
+        console.print(f"{title}: none")
+        return
+    table = Table(title=f"{title} ({len(frame)})", title_justify="left")
+    for column in frame.columns:
+        table.add_column(str(column))
+    for row in frame.head(limit).itertuples(index=False):
+        table.add_row(*("" if pd.isna(v) else str(v) for v in row))
+    console.print(table)
+    if len(frame) > limit:
+        console.print(f"... {len(frame) - limit} more rows")
+
+
+def print_counts(counts: dict[str, Any]) -> None:
+    """Print a flat or one-level nested mapping of counts, one per line."""
+    for key, value in counts.items():
+        if isinstance(value, dict):
+            shown = ", ".join(f"{k}: {v}" for k, v in value.items()) or "none"
+            console.print(f"{key.replace('_', ' ')}: {shown}")
+        else:
+            console.print(f"{key.replace('_', ' ')}: {value}")
