@@ -31,9 +31,8 @@ def main(argv: list[str]) -> int:
         spec.loader.exec_module(module)
         print(f"running {path.name} ...", flush=True)
         rows.extend(module.run())
-    print(
-        f"\nmachine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}"
-    )
+    machine = f"{platform.machine()}, {os.cpu_count()} cores"
+    print(f"\nmachine: {machine}, Python {platform.python_version()}")
     header = f"{'benchmark':28} {'measure':44} {'value':>12} {'unit':6} target"
     print(header)
     print("-" * len(header))

@@ -1,0 +1,3 @@
+"""The invented demo scenario and the demo pipeline."""
+
+__all__: list[str] = []
