@@ -29,7 +29,7 @@ from hypothesis import strategies as st
 from sqlalchemy import func, select
 
 from curation.errors import ConflictError, FormatError, InputError, NotFoundError
-from curation.formats.newick import relabel_tips, split_newick
+from curation.formats.newick import _relabel_tips_slowly, relabel_tips, split_newick
 from curation.imports.common import SourceInfo
 from curation.imports.trees import guess_tree_format, import_trees, read_tree_file
 from curation.store import Store
@@ -737,7 +737,28 @@ RENAME_GALLERY = {
     "star tree": "(a,b,c,d);",
     "polytomy": "((a,b,c)x:1,d)y;",
     "quoted and comments": "('a'[&p=1]:1,[c]b:1[&q=2])'a':0;",
+    "punctuation in quotes": "('(a,b':1,(c,'x,(y'):1)'(z,':1;",
+    "empty tips": "(,a,(,b));",
 }
+
+
+@pytest.mark.parametrize("case", sorted(RENAME_GALLERY))
+def test_fast_tip_renaming_matches_the_token_by_token_one(case: str) -> None:
+    text = RENAME_GALLERY[case]
+    names = {"a": "A 1", "b": "B'2", "c": "C_3", "(a,b": "first", "x,(y": "second"}
+    seen: list[tuple[str, int]] = []
+    slow_seen: list[tuple[str, int]] = []
+
+    def fast(label: str, position: int) -> str | None:
+        seen.append((label, position))
+        return names.get(label)
+
+    def slow(label: str, position: int) -> str | None:
+        slow_seen.append((label, position))
+        return names.get(label)
+
+    assert relabel_tips(text, fast) == _relabel_tips_slowly(text, slow)
+    assert seen == slow_seen
 
 
 @pytest.mark.parametrize("case", sorted(RENAME_GALLERY))
@@ -749,9 +770,8 @@ def test_renaming_tips_matches_dendropy(case: str) -> None:
     reference = dendropy.Tree.get(
         data=text, schema="newick", preserve_underscores=True, suppress_internal_node_taxa=True
     )
-    expected = [
-        names.get(leaf.taxon.label, leaf.taxon.label) for leaf in reference.leaf_node_iter()
-    ]
+    tip_labels = [leaf.taxon.label if leaf.taxon else "" for leaf in reference.leaf_node_iter()]
+    expected = [names.get(label, label) for label in tip_labels]
     ours = parse_newick(renamed)
     assert ours.tip_labels == expected
     # Internal labels stay as they were.

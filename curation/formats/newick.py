@@ -25,6 +25,15 @@ __all__ = ["NewickPiece", "relabel_tips", "split_newick"]
 _SPLIT = re.compile(r"'(?:[^']|'')*'|\[[^\]]*\]|;|['\[]")
 _ONLY_COMMENTS = re.compile(r"(?:\s+|\[[^\]]*\])*")
 
+_TIP = re.compile(
+    r"""
+    '(?:[^']|'')*'                              # a quoted label not after ( or ,
+  | \[[^\]]*\]                                 # a comment
+  | [(,](?:\s|\[[^\]]*\])*(?P<tip>'(?:[^']|'')*'|[^\s(),:;'\[\]]+)
+    """,
+    re.VERBOSE,
+)
+
 _TOKEN = re.compile(
     r"""
     (?P<quoted>'(?:[^']|'')*')
@@ -101,6 +110,30 @@ def relabel_tips(text: str, rename: Callable[[str, int], str | None]) -> str:
     to keep the old one. New labels are quoted only where they need it.
     Internal node labels, branch lengths and comments are left alone.
     """
+    if "(" not in text:
+        return _relabel_tips_slowly(text, rename)
+    out: list[str] = []
+    last = 0
+    # A tip label is the label right after '(' or ',' (blanks and comments
+    # between allowed); quoted labels and comments elsewhere are stepped
+    # over whole so that a '(' or ',' inside them is not taken for one.
+    for match in _TIP.finditer(text):
+        value = match.group("tip")
+        if value is None:
+            continue
+        start = match.start("tip")
+        label = value[1:-1].replace("''", "'") if value[0] == "'" else value
+        new = rename(label, start)
+        if new is not None and new != label:
+            out.append(text[last:start])
+            out.append(quote_label(new))
+            last = match.end("tip")
+    out.append(text[last:])
+    return "".join(out)
+
+
+def _relabel_tips_slowly(text: str, rename: Callable[[str, int], str | None]) -> str:
+    """Token by token; for trees without '(' (one tip) and as the reference."""
     out: list[str] = []
     last = 0
     previous: str | None = None  # the last token that is not a blank or comment

@@ -30,8 +30,9 @@ _SPACE = re.compile(r"\s+")
 _WORD = re.compile(r"[^\s;=,'\[\]]+")
 _QUOTED = re.compile(r"'(?:[^']|'')*'")
 _BRACKET = re.compile(r"[\[\]]")
-# Inside a command: the next thing that matters when looking for its ';'.
-_COMMAND_PART = re.compile(r"'(?:[^']|'')*'|[\[;']")
+# Inside a command: the next thing that matters when looking for its ';'
+# (a quoted token or a comment without nesting is stepped over whole).
+_COMMAND_PART = re.compile(r"'(?:[^']|'')*'|\[[^\[\]]*\]|[\[;']")
 
 
 @dataclass(frozen=True)
@@ -179,7 +180,7 @@ class _Scanner:
             if token == ";":
                 self.pos = match.end()
                 return match.start()
-            if token == "[":
+            if token == "[":  # a comment with comments nested in it
                 pos = self.comment_end(match.start())
             elif token == "'":
                 raise self.error(
