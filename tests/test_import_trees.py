@@ -32,7 +32,7 @@ from curation.errors import ConflictError, FormatError, InputError, NotFoundErro
 from curation.formats.newick import _relabel_tips_slowly, relabel_tips, split_newick
 from curation.imports.common import SourceInfo
 from curation.imports.trees import guess_tree_format, import_trees, read_tree_file
-from curation.store import Store
+from curation.store import Store, create_store, open_store
 from curation.store.models import LedgerEvent, Source, Tip, Tree, TreeSet
 from curation.trees.arrays import TreeArrays, parse_newick
 from curation.trees.stored import load_tree_set
@@ -437,6 +437,50 @@ def test_nexus_taxa_by_number_without_translate(tmp_path: Path) -> None:
     assert_same_as_dendropy(path, "nexus", [contents.trees[0].arrays])
 
 
+def test_nexus_tree_tokens_name_taxa_blank_and_case_blind(tmp_path: Path) -> None:
+    # In NEXUS an unquoted underscore is a blank and names are not case
+    # sensitive (Maddison, Swofford and Maddison 1997), so Homo_sapiens in a
+    # tree is the taxon 'Homo sapiens' of TAXLABELS; the TAXA block's
+    # spelling is the one kept.
+    text = (
+        "#NEXUS\nbegin taxa; dimensions ntax=3; taxlabels 'Homo sapiens' Pan_troglodytes "
+        "Gorilla; end;\nbegin trees; tree one = ((Homo_sapiens:1,pan_troglodytes:1):0.5,"
+        "Gorilla:1.5); end;\n"
+    )
+    path = write(tmp_path, "apes.nex", text)
+    contents = read_tree_file(path)
+    assert contents.trees[0].arrays.tip_labels == ["Homo sapiens", "Pan_troglodytes", "Gorilla"]
+    # DendroPy under the standard's rules finds the same three taxa.
+    reference = dendropy.TreeList.get(path=str(path), schema="nexus")
+    assert len(reference.taxon_namespace) == 3
+
+
+def test_nexus_tree_tip_missing_from_the_taxa_block(store: Store, tmp_path: Path) -> None:
+    text = (
+        "#NEXUS\nbegin taxa; dimensions ntax=3; taxlabels A B C; end;\n"
+        "begin trees;\n tree one = ((A:1,B:1):0.5,D:1.5);\nend;\n"
+    )
+    before = row_counts(store)
+    with pytest.raises(FormatError, match="tip 'D' of tree 'one' is not in the TAXA block") as info:
+        import_trees(store, write(tmp_path, "abd.nex", text))
+    assert (info.value.line, info.value.column) == (4, 28)
+    assert row_counts(store) == before
+
+
+def test_nexus_problems_in_blocks_are_all_reported(tmp_path: Path) -> None:
+    text = (
+        "#NEXUS\nbegin taxa; dimensions ntax=4; taxlabels A B C; end;\n"
+        "begin trees;\n translate 1 A, 2 B, 2 C;\n tree one = ((1:1,2:1):0.5,9:1.5);\nend;\n"
+    )
+    with pytest.raises(FormatError) as info:
+        read_tree_file(write(tmp_path, "three.nex", text))
+    messages = [p.message for p in info.value.problems]
+    assert len(messages) == 3
+    assert "NTAX=4 but TAXLABELS lists 3 names" in messages[0]
+    assert "TRANSLATE token '2' is given twice" in messages[1]
+    assert "tip '9'" in messages[2]
+
+
 def test_nexus_without_taxa_block_and_several_tree_blocks(tmp_path: Path) -> None:
     text = (
         "#NEXUS\nBEGIN TREES;\n TREE first = (a:1,b:1);\nEND;\n"
@@ -797,8 +841,8 @@ def run_cli(*args: str) -> subprocess.CompletedProcess[str]:
 
 
 def test_import_trees_command(tmp_path: Path) -> None:
-    store = str(tmp_path / "lab.db")
-    assert run_cli("create-store", "--store", store).returncode == 0
+    store = tmp_path / "lab.db"
+    create_store(store).close()
     path = write(tmp_path, "posterior.trees", posterior_newick(10))
     done = run_cli(
         "import-trees",
@@ -807,22 +851,30 @@ def test_import_trees_command(tmp_path: Path) -> None:
         "2",
         "--keep-every",
         "4",
-        "--store",
-        store,
         "--label",
         "sample",
         "--citation",
         "invented",
+        "--store",
+        str(store),
     )
     assert done.returncode == 0, done.stderr
     assert "Stored tree set 1" in done.stdout
     assert "2 of 10 trees, 3 distinct tips" in done.stdout
-    shown = run_cli("show-store", "--store", store)
-    assert "trees: 2" in shown.stdout and "tips: 6" in shown.stdout
-    again = run_cli("import-trees", str(path), "--store", store)
-    assert again.returncode == 2
-    assert "already in the store" in again.stdout and "Traceback" not in again.stdout + again.stderr
-    bad = write(tmp_path, "bad.nwk", "((A,B);")
-    refused = run_cli("import-trees", str(bad), "--store", store)
-    assert refused.returncode == 2
-    assert "line 1" in refused.stdout and "Traceback" not in refused.stdout + refused.stderr
+    with open_store(store) as opened:
+        assert row_counts(opened) == {
+            "sources": 1,
+            "tree_sets": 1,
+            "trees": 2,
+            "tips": 6,
+            "ledger_events": 1,
+        }
+        with opened.reading() as session:
+            source = session.scalars(select(Source)).one()
+            assert (source.label, source.citation) == ("sample", "invented")
+        bad = write(tmp_path, "bad.nwk", "((A,B);")
+        refused = run_cli("import-trees", str(bad), "--store", str(store))
+        assert refused.returncode == 2
+        assert "bad.nwk, line 1, column 7" in refused.stdout
+        assert "Traceback" not in refused.stdout + refused.stderr
+        assert row_counts(opened)["sources"] == 1
