@@ -17,6 +17,7 @@ Outside references used here:
 from __future__ import annotations
 
 import os
+import random
 import subprocess
 import sys
 from pathlib import Path
@@ -34,7 +35,7 @@ from curation.imports.common import SourceInfo
 from curation.imports.trees import guess_tree_format, import_trees, read_tree_file
 from curation.store import Store, create_store, open_store
 from curation.store.models import LedgerEvent, Source, Tip, Tree, TreeSet
-from curation.trees.arrays import TreeArrays, parse_newick
+from curation.trees.arrays import TreeArrays, parse_newick, quote_label, to_newick
 from curation.trees.stored import load_tree_set
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -481,6 +482,24 @@ def test_nexus_problems_in_blocks_are_all_reported(tmp_path: Path) -> None:
     assert "tip '9'" in messages[2]
 
 
+def test_nexus_rooting_written_before_the_equals_sign(store: Store, tmp_path: Path) -> None:
+    # Samplers write tree-wide comments between the name and '=' (the
+    # [&lnP=...] of BEAST files); a rooting comment there is read too (our
+    # reading: DendroPy ignores it, so it is no reference for this case).
+    text = (
+        "#NEXUS\nbegin trees;\n tree a [&R] = (A:1,B:1);\n tree b [&U] = (A:1,B:1,C:1);\n"
+        " tree c [&lnP=-5] = (A:1,B:1);\nend;\n"
+    )
+    path = write(tmp_path, "rooting.nex", text)
+    result = import_trees(store, path)
+    with store.reading() as session:
+        trees = load_tree_set(session, result.tree_set_id)
+    # Stored and read back: the rooting survives in the stored text.
+    assert [(t.rooted, a.rooted) for t, a in trees] == [(True, True), (False, False), (None, None)]
+    assert trees[2][1].comments[0] == ["[&lnP=-5]"]
+    assert trees[0][0].newick == "[&R] (A:1,B:1);"
+
+
 def test_nexus_without_taxa_block_and_several_tree_blocks(tmp_path: Path) -> None:
     text = (
         "#NEXUS\nBEGIN TREES;\n TREE first = (a:1,b:1);\nEND;\n"
@@ -493,6 +512,61 @@ def test_nexus_without_taxa_block_and_several_tree_blocks(tmp_path: Path) -> Non
         ["Ardelia_minor", "Ardelia major"],
     ]
     assert contents.trees[1].arrays.rooted is False  # UTREE: unrooted
+
+
+# --- labels across a round trip (the label policy) ---------------------------
+
+LABEL = st.text(alphabet="ABCdefXyz019_ '-.", min_size=1, max_size=12).filter(
+    lambda label: label == label.strip()
+)
+
+
+def unique_labels(labels: list[str]) -> bool:
+    # DendroPy's taxa are case-blind, and NEXUS makes '_' a blank: keep the
+    # drawn labels distinct under both, so only the policy is under test.
+    keys = {label.casefold().replace("_", " ") for label in labels}
+    return len(keys) == len(labels)
+
+
+def random_tree_text(labels: list[str], seed: int) -> str:
+    """Newick of a random binary tree over ``labels`` written by our writer."""
+    rng = random.Random(seed)
+    nodes = [f"{quote_label(label)}:{rng.randint(1, 9) / 4}" for label in labels]
+    while len(nodes) > 1:
+        a = nodes.pop(rng.randrange(len(nodes)))
+        b = nodes.pop(rng.randrange(len(nodes)))
+        nodes.append(f"({a},{b}):0.5")
+    return nodes[0].rsplit(":", 1)[0] + ";"
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    labels=st.lists(LABEL, min_size=2, max_size=10, unique=True).filter(unique_labels),
+    seed=st.integers(min_value=0, max_value=10_000),
+)
+def test_labels_survive_newick_and_nexus_round_trips(labels: list[str], seed: int) -> None:
+    # Labels with underscores, blanks, apostrophes, hyphens, dots and digits.
+    newick = random_tree_text(labels, seed)
+    ours = read_tree_file("t.nwk", data=newick.encode()).trees[0].arrays
+    assert sorted(ours.tip_labels) == sorted(labels)
+    assert parse_newick(to_newick(ours)).tip_labels == ours.tip_labels
+    # DendroPy, told to keep underscores, reads our text to the same labels.
+    reference = dendropy.Tree.get(data=newick, schema="newick", preserve_underscores=True)
+    assert [leaf.taxon.label for leaf in reference.leaf_node_iter()] == ours.tip_labels
+    # The same tree as NEXUS with TAXA and TRANSLATE (Maddison, Swofford
+    # and Maddison 1997): tokens 1..n stand for the quoted names.
+    numbers = {label: str(i + 1) for i, label in enumerate(labels)}
+    body = relabel_tips(newick, lambda label, _: numbers[label])
+    taxlabels = " ".join(quote_label(label) for label in labels)
+    translate = ", ".join(f"{numbers[label]} {quote_label(label)}" for label in labels)
+    nexus = (
+        f"#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX={len(labels)};\n TAXLABELS {taxlabels};\nEND;\n"
+        f"BEGIN TREES;\n TRANSLATE {translate};\n TREE t = {body}\nEND;\n"
+    )
+    from_nexus = read_tree_file("t.nex", data=nexus.encode()).trees[0].arrays
+    assert from_nexus.tip_labels == ours.tip_labels
+    reference_nexus = dendropy.Tree.get(data=nexus, schema="nexus", preserve_underscores=True)
+    assert [leaf.taxon.label for leaf in reference_nexus.leaf_node_iter()] == ours.tip_labels
 
 
 # --- NeXML ------------------------------------------------------------------
