@@ -1,0 +1,2 @@
+"""Readers and writers of file formats shared by the stages: tabular files
+(CSV, TSV, XLSX) here; tree formats beside them."""
