@@ -404,6 +404,13 @@ def _read_workbook(data: bytes, file_name: str, *, sheet: str | None) -> Table:
     try:
         book = load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except (BadZipFile, KeyError, OSError, ValueError) as exc:
+        if b"meta.xml" in data:
+            raise FormatError(
+                f"{file_name!r} is a zip with a meta.xml (a Darwin Core Archive), not a workbook",
+                file=file_name,
+                hint="import it with `tipledger import-darwin-core` (or import-synonyms "
+                "for a checklist)",
+            ) from None
         raise FormatError(
             f"{file_name!r} cannot be read as an .xlsx workbook: {exc}",
             file=file_name,
