@@ -37,7 +37,20 @@ from curation.imports.measurements import (
 from curation.store.engine import Store
 from curation.store.models import TraitDefinition, TraitSource
 
-__all__ = ["import_darwin_core", "measurements_from_archive"]
+__all__ = ["CORE_TERMS", "FACT_TERMS", "import_darwin_core", "measurements_from_archive"]
+
+#: The Darwin Core terms read from the core rows (by short name; each is
+#: ``http://rs.tdwg.org/dwc/terms/`` + name).
+CORE_TERMS = (
+    "scientificName",
+    "catalogNumber",
+    "occurrenceID",
+    "institutionCode",
+    "sex",
+    "lifeStage",
+)
+#: The Darwin Core terms read from the MeasurementOrFact rows.
+FACT_TERMS = ("measurementType", "measurementValue", "measurementUnit")
 
 _CORE_TYPES = (OCCURRENCE, TAXON)
 _FACT_TYPES = (MEASUREMENT_OR_FACT, EXTENDED_MEASUREMENT_OR_FACT)

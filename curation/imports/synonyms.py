@@ -28,7 +28,13 @@ from curation.imports.measurements import ProgressCallback
 from curation.store.engine import Store
 from curation.store.models import Synonym
 
-__all__ = ["SYNONYM_STATUSES", "import_synonyms", "synonyms_from_checklist", "synonyms_from_pairs"]
+__all__ = [
+    "CHECKLIST_TERMS",
+    "SYNONYM_STATUSES",
+    "import_synonyms",
+    "synonyms_from_checklist",
+    "synonyms_from_pairs",
+]
 
 #: taxonomicStatus values read as synonyms, compared lower-case without
 #: blanks, hyphens or underscores. The words are those of the GBIF
@@ -49,7 +55,14 @@ SYNONYM_STATUSES = frozenset(
     }
 )
 
-_CHECKLIST_TERMS = ("taxonID", "scientificName", "taxonomicStatus", "acceptedNameUsageID")
+#: The Darwin Core terms a checklist is read by (TDWG).
+CHECKLIST_TERMS = (
+    "taxonID",
+    "scientificName",
+    "taxonomicStatus",
+    "acceptedNameUsageID",
+    "acceptedNameUsage",
+)
 _SYNONYM_ALIASES = ("synonym", "synonymname", "oldname", "writtenname", "name")
 _ACCEPTED_ALIASES = ("accepted", "acceptedname", "validname", "currentname", "acceptedname")
 _ROLES = ("synonym", "accepted", "status")
@@ -363,7 +376,7 @@ def import_synonyms(
         frame, numbers = table.frame, list(table.row_numbers)
         file_format = table.format
         lowered = {c.lower() for c in table.columns}
-        looks_checklist = all(t.lower() in lowered for t in _CHECKLIST_TERMS[:3])
+        looks_checklist = all(t.lower() in lowered for t in CHECKLIST_TERMS[:3])
         used_layout = layout or ("checklist" if looks_checklist else "pairs")
         read_options = {
             "encoding": table.encoding,
