@@ -213,7 +213,7 @@ def _read_file(
     if id_element is not None:
         index = index_of(id_element, f"<{id_tag}>")
         if index is not None:
-            columns["_id"] = frame[index].astype(str).str.strip()
+            columns["_id"] = frame[index].astype(object).str.strip()
     for node in _children(element, "field"):
         term = node.get("term", "")
         if not term:
@@ -223,7 +223,7 @@ def _read_file(
         default = node.get("default")
         index = index_of(node, f"the field {name!r}")
         if index is not None:
-            values = frame[index].astype(str).str.strip()
+            values = frame[index].astype(object).str.strip()
             if default is not None:
                 values = values.where(values != "", default)
         elif node.get("index") is None and default is not None:

@@ -59,7 +59,7 @@ _FACT_TYPES = (MEASUREMENT_OR_FACT, EXTENDED_MEASUREMENT_OR_FACT)
 def _column(frame: pd.DataFrame, name: str) -> pd.Series:
     if name not in frame.columns:
         return pd.Series([None] * len(frame), index=frame.index, dtype=object)
-    text = frame[name].astype(str).str.strip()
+    text = frame[name].astype(object).str.strip()
     return text.where(text != "", None)
 
 

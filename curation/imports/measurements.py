@@ -28,6 +28,7 @@ __all__ = [
     "mark_discrete",
     "store_measurements",
     "check_decimal",
+    "insert_rows",
 ]
 
 #: Called as ``progress(done, total)`` while rows are stored.
@@ -88,7 +89,7 @@ def parse_values(written: pd.Series, *, decimal: str = ".") -> pd.DataFrame:
         ``reason`` (``None`` when ok).
     """
     check_decimal(decimal)
-    text = written.fillna("").astype(str).str.strip()
+    text = written.astype(object).where(written.notna(), "").str.strip()
     lowered = text.str.lower()
     empty = text == ""
     mark = lowered.isin(MISSING_MARKS)
@@ -168,6 +169,26 @@ def mark_discrete(frame: pd.DataFrame, kinds: dict[str, str]) -> list[str]:
     return discrete
 
 
+def insert_rows(session: Session, table: str, columns: list[str], rows: list[tuple]) -> None:
+    """Insert ``rows`` (tuples in ``columns`` order) into ``table`` with one
+    executemany on the session's own connection (so inside its transaction),
+    skipping the per-row parameter processing of an ORM or Core insert."""
+    if not rows:
+        return
+    connection = session.connection()
+    style = connection.dialect.paramstyle
+    if style == "qmark":
+        marks = ", ".join("?" for _ in columns)
+    elif style in ("format", "pyformat"):
+        marks = ", ".join("%s" for _ in columns)
+    else:  # any other driver: SQLAlchemy's own bulk insert
+        table_object = Measurement.metadata.tables[table]
+        session.execute(insert(table_object), [dict(zip(columns, r, strict=True)) for r in rows])
+        return
+    quoted = ", ".join(connection.dialect.identifier_preparer.quote(c) for c in columns)
+    connection.exec_driver_sql(f"INSERT INTO {table} ({quoted}) VALUES ({marks})", rows)
+
+
 def store_measurements(
     session: Session,
     trait_source_id: int,
@@ -188,16 +209,24 @@ def store_measurements(
         Counts: ``measurements`` and one per status.
     """
     total = len(frame)
-    table = Measurement.__table__
     for column in MEASUREMENT_COLUMNS:
         if column not in frame.columns:
             frame[column] = None
-    ordered = frame[MEASUREMENT_COLUMNS].assign(trait_source_id=trait_source_id)
+    names = ["trait_source_id", *MEASUREMENT_COLUMNS]
     for start in range(0, total, chunk_size):
-        part = ordered.iloc[start : start + chunk_size].astype(object)
-        part = part.where(part.notna(), None)
-        # astype(object) boxes NumPy scalars as Python ones, which every driver takes.
-        session.execute(insert(table), part.to_dict("records"))
+        part = frame.iloc[start : start + chunk_size]
+        # Plain Python values column by column (NaN -> None), zipped into
+        # rows: much cheaper than one dict per row.
+        values = [[trait_source_id] * len(part)]
+        for column in MEASUREMENT_COLUMNS:
+            series = part[column]
+            data = series.to_numpy(dtype=object)
+            missing = pd.isna(data)
+            if missing.any():
+                data = data.copy()
+                data[missing] = None
+            values.append(data.tolist())
+        insert_rows(session, Measurement.__table__.name, names, list(zip(*values, strict=True)))
         if progress is not None:
             progress(min(start + chunk_size, total), total)
     counts = {"measurements": total}

@@ -73,7 +73,7 @@ def _key(name: str) -> str:
 
 
 def _stripped(series: pd.Series) -> pd.Series:
-    text = series.fillna("").astype(str).str.strip()
+    text = series.astype(object).where(series.notna(), "").str.strip()
     return text.where(text != "", None)
 
 

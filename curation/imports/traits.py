@@ -222,7 +222,7 @@ def resolve_columns(
 def _text(frame: pd.DataFrame, roles: dict[str, str], role: str) -> pd.Series:
     if role not in roles:
         return pd.Series([None] * len(frame), index=frame.index, dtype=object)
-    text = frame[roles[role]].astype(str).str.strip()
+    text = frame[roles[role]].astype(object).str.strip()
     return text.where(text != "", None)
 
 
