@@ -340,14 +340,12 @@ def generate_scenario(
         raise InputError(
             f"tips={tips} is too few for the planted defects",
             field="tips",
-            value=tips,
             hint="give --tips 20 or more",
         )
     if posterior_trees < 5:
         raise InputError(
             f"posterior_trees={posterior_trees} is too few for a burn-in and planted defects",
             field="posterior_trees",
-            value=posterior_trees,
             hint="give --posterior-trees 5 or more",
         )
     root = Path(folder)

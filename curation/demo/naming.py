@@ -19,6 +19,7 @@ __all__ = [
     "INSTITUTIONS",
     "OLD_GENERA",
     "invent_epithet",
+    "invent_epithets",
     "invent_genus",
     "gender_variant",
     "misspell",
@@ -132,6 +133,28 @@ def invent_epithet(rng: np.random.Generator, gender: str) -> tuple[str, str]:
     if draw < 0.8:
         return stem + _ADJ_3[gender], "adj3"
     return stem + "i", "genitive"
+
+
+def _pick(rng: np.random.Generator, options: list[str], size: int) -> np.ndarray:
+    return np.asarray(options, dtype=object)[rng.integers(len(options), size=size)]
+
+
+def invent_epithets(genders: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Vectorised :func:`invent_epithet` for many names at once: epithets
+    agreeing with each of ``genders`` and their class ('adj1' or 'other').
+
+    Returns:
+        Two object arrays: the epithets and their classes.
+    """
+    n = len(genders)
+    stems = _pick(rng, _ONSETS, n) + _pick(rng, _VOWELS, n) + _pick(rng, _MIDDLES, n)
+    longer = rng.random(n) < 0.6
+    stems = np.where(longer, stems + _pick(rng, _VOWELS[:5], n) + _pick(rng, _MIDDLES, n), stems)
+    adjective = rng.random(n) < 0.6
+    endings = np.array([_ADJ_1[g] for g in genders], dtype=object)
+    other = _pick(rng, ["is", "i", "ae", "ensis"], n)
+    epithets = stems + np.where(adjective, endings, other)
+    return epithets, np.where(adjective, "adj1", "other").astype(object)
 
 
 def gender_variant(epithet: str, kind: str, gender: str) -> str | None:
