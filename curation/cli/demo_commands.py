@@ -20,13 +20,17 @@ def demo_command(
         str | None,
         typer.Option(help="Use this scenario folder instead of generating one in FOLDER/samples."),
     ] = None,
+    store: Annotated[
+        str | None,
+        typer.Option(help="Store file or SQLAlchemy URL to build (default: FOLDER/tipledger.db)."),
+    ] = None,
 ) -> None:
     """Build a demo store from the invented sample scenario and run every
     stage end to end.
 
     Example: tipledger demo --folder demo-output
     """
-    report = run_demo(folder, samples=samples)
+    report = run_demo(folder, samples=samples, store=store)
     print_frame("Demo steps", pd.DataFrame([s.model_dump() for s in report.steps]))
     console.print(f"Demo store {report.store} (samples in {report.samples}):")
     print_counts(report.summary.model_dump())

@@ -26,8 +26,8 @@ from curation.demo.generator import (
     scenario_files,
 )
 from curation.errors import ConflictError, NotFoundError
-from curation.imports.common import read_source_bytes, sha256_of
-from curation.store import Store, create_store, open_store
+from curation.imports.common import SourceInfo, read_source_bytes, sha256_of
+from curation.store import Store, create_store
 from curation.store.models import Source, Tree, TreeSet
 from curation.store.summary import StoreSummary, summarise_store
 
@@ -90,13 +90,21 @@ def _import_once(
 ) -> int:
     """Import ``path`` unless the store already holds it (a demo run again
     in the same folder); return the source id either way."""
+    info = SourceInfo(
+        label=f"demo: {path.name}",
+        citation=f"Invented demo scenario (generate-scenario --seed {context.files.seed})",
+        licence="CC0-1.0",
+    )
     try:
-        result = importer(context.store, path, who=DEMO_USER, **options)
+        result = importer(context.store, path, info=info, who=DEMO_USER, **options)
         return int(result.source_id)
     except ConflictError:
         digest = sha256_of(read_source_bytes(path))
         with context.store.reading() as session:
-            return int(session.scalar(select(Source.id).where(Source.sha256 == digest)))
+            stored = session.scalar(select(Source.id).where(Source.sha256 == digest))
+        if stored is None:  # a conflict of another kind: show it
+            raise
+        return int(stored)
 
 
 def _tree_set_of(context: DemoContext, source_id: int) -> int:
@@ -276,6 +284,7 @@ def run_demo(
     *,
     samples: str | Path | None = None,
     seed: int = DEFAULT_SEED,
+    store: str | None = None,
 ) -> DemoReport:
     """Build the demo store ``folder/tipledger.db`` from the sample scenario
     and run every stage this build has, in order.
@@ -287,6 +296,8 @@ def run_demo(
         samples: a folder written by :func:`generate_scenario`; by default
             the scenario is generated afresh into ``folder/samples`` with
             ``seed`` (byte-identical to the committed ``samples/``).
+        store: a store file or SQLAlchemy URL to build instead of
+            ``folder/tipledger.db`` (created when new, reused otherwise).
 
     Returns:
         A :class:`DemoReport`: each step done or skipped, and the counts of
@@ -309,11 +320,10 @@ def run_demo(
                 hint="write one with tipledger generate-scenario --folder FOLDER",
             )
     burn_in = int(_tree_truth(files)["posterior"]["burn_in"])
-    path = target / "tipledger.db"
-    store = open_store(path) if path.exists() else create_store(path)
+    opened = create_store(store or target / "tipledger.db")
     steps: list[StepResult] = []
-    with store:
-        context = DemoContext(store, files, target, burn_in)
+    with opened:
+        context = DemoContext(opened, files, target, burn_in)
         for name, step in DEMO_STEPS:
             try:
                 message = step(context)
@@ -321,9 +331,10 @@ def run_demo(
                 steps.append(StepResult(step=name, status="skipped", message=str(missing)))
                 continue
             steps.append(StepResult(step=name, status="done", message=message))
-        summary = summarise_store(store)
+        summary = summarise_store(opened)
+        shown = opened.display_url()
     return DemoReport(
-        folder=str(target), store=str(path), samples=str(files.folder), steps=steps, summary=summary
+        folder=str(target), store=shown, samples=str(files.folder), steps=steps, summary=summary
     )
 
 
