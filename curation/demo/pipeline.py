@@ -142,35 +142,26 @@ def _step_import_synonyms(context: DemoContext) -> str:
 
 def _step_import_traits(context: DemoContext) -> str:
     import_traits = _function("curation.imports", "import_traits")
+    # Source 1: one row per specimen; units in the headers (body_mass_g).
     _import_once(
         context,
         import_traits,
         context.files.traits_wide,
         layout="wide",
-        columns={
-            "taxon": "written_name",
-            "institution": "institution",
-            "catalog_number": "specimen_id",
-            "sex": "sex",
-        },
-        units={
-            "body_length_mm": "mm",
-            "tail_length_mm": "mm",
-            "head_width_mm": "mm",
-            "body_mass_g": "g",
-        },
+        columns={"taxon": "taxon", "institution": "institution", "specimen": "catalog_number"},
+        traits=["body_length_mm", "tail_length_mm", "head_width_mm", "body_mass_g", "activity"],
         priority=10,
     )
+    # Source 2: one row per measurement, Windows-1252 with decimal commas.
     _import_once(
         context,
         import_traits,
         context.files.traits_long,
         layout="long",
         columns={
-            "species": "written_name",
-            "museum": "institution",
-            "catalogue_no": "specimen_id",
-            "sex": "sex",
+            "taxon": "species",
+            "institution": "museum",
+            "specimen": "catalogue_no",
             "trait": "trait",
             "value": "value",
             "unit": "unit",
