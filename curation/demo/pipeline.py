@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import importlib
 import json
+import pkgutil
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -58,18 +59,26 @@ class StageMissingError(Exception):
     """A stage's library function is not in this build (yet)."""
 
 
-def _function(module: str, name: str) -> Callable[..., Any]:
-    """Return ``module.name``, or raise :class:`StageMissingError`."""
+def _function(package: str, name: str) -> Callable[..., Any]:
+    """Return the library function ``name`` of a stage's ``package`` (from
+    the package itself or, before it lists it, one of its modules), or
+    raise :class:`StageMissingError`."""
     try:
-        found = getattr(importlib.import_module(module), name, None)
+        module = importlib.import_module(package)
     except ModuleNotFoundError as missing:
         # Only the stage's own package being absent means "not built yet";
         # a stage that fails to import is a bug and must show.
-        if missing.name is None or not module.startswith(missing.name):
+        if missing.name is None or not package.startswith(missing.name):
             raise
-        found = None
+        raise StageMissingError(f"{package}.{name} is not available yet") from None
+    found = getattr(module, name, None)
+    if found is None and hasattr(module, "__path__"):
+        for info in pkgutil.iter_modules(module.__path__):
+            found = getattr(importlib.import_module(f"{package}.{info.name}"), name, None)
+            if found is not None:
+                break
     if found is None:
-        raise StageMissingError(f"{module}.{name} is not available yet")
+        raise StageMissingError(f"{package}.{name} is not available yet")
     return found  # type: ignore[no-any-return]
 
 
