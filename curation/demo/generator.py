@@ -310,7 +310,15 @@ QRSM), their towns and the people named are fictional too.
 - `truth/trees.json`: every planted tree defect (nodes named by two tips).
 - `truth/species.csv`: the species values the specimens were drawn from.
 
-Rows are counted from 1 after the header line (`line` is the line in the file).
+In `truth/faults.csv`, `row` counts data rows from 1 after the header and
+`line` is the line in the file (for the archive: in `member`). Fault kinds:
+`unit_slip` (a value in another unit than written), `outlier`, `impossible`
+(negative or zero), `unparsed` (a number with a qualifier), `unknown_unit`,
+`incompatible_unit`, `state_conflict`, `duplicate` (the later copy of a
+specimen another source holds: same institution and catalogue number),
+`exact_duplicate` (a repeated row) and `missing` (no value written).
+In `truth/names.csv`, `true_tip` is empty for names with no tip
+(`no_tip`: a species not in the tree; `sp_qualifier`: a genus only).
 """
 
 
