@@ -348,6 +348,7 @@ def test_planted_faults_point_at_the_rows_that_hold_them(scenario) -> None:  # t
         "unknown_unit",
         "incompatible_unit",
         "state_conflict",
+        "source_conflict",
     ):
         assert kinds.get(kind, 0) >= 1, kind
     # A duplicate is a specimen (institution + catalogue number) that the

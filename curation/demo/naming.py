@@ -207,14 +207,14 @@ def misspell(word: str, rng: np.random.Generator) -> str:
 
 # Near-equivalent spellings people write for one another (common practice
 # in checklists): each pair is (as named, as miswritten).
-_EQUIVALENTS = [("ph", "f"), ("ae", "e"), ("y", "i"), ("k", "c"), ("i", "ii")]
+_EQUIVALENTS = [("ph", "f"), ("ae", "e"), ("ae", "æ"), ("y", "i"), ("k", "c")]
 
 
 def spelling_variant(word: str, rng: np.random.Generator) -> str | None:
     """Return ``word`` with one near-equivalent spelling swapped (ph/f, ae/e,
-    y/i, k/c, a doubled or undoubled letter, -i/-ii), or None if none fits."""
+    the ligature æ, y/i, k/c, a doubled letter, -i/-ii), or None if none fits."""
     options: list[str] = []
-    for named, written in _EQUIVALENTS[:4]:
+    for named, written in _EQUIVALENTS:
         position = word.find(named, 1)
         if position > 0:
             options.append(word[:position] + written + word[position + len(named) :])

@@ -65,7 +65,7 @@ def _write_name(
     if kind == "spelling_variant":
         variant = naming.spelling_variant(e, rng)
         if variant:
-            return f"{g} {variant}", kind
+            return f"{g} {variant}", "ligature" if "æ" in variant else kind
     if kind == "gender_variant":
         variant = naming.gender_variant(e, sp.kind, sp.gender)
         if variant:
@@ -296,6 +296,29 @@ def plant_faults(cells: list[Cell], rng: np.random.Generator) -> None:
     other = [s for s in STATES if s != cell.value]
     cell.written = other[int(rng.integers(len(other)))]
     cell.kind, cell.detail = "state_conflict", f"true state {cell.value}"
+
+    # One contributor's species all in mm under a cm heading: its values
+    # in that source disagree with the other sources by a factor of 10.
+    per_source: dict[tuple[str, str], list[int]] = {}
+    for i, c in enumerate(cells):
+        if c.canonical and c.trait == "body_length":
+            per_source.setdefault((c.canonical, c.source), []).append(i)
+    conflicted = sorted(
+        name
+        for (name, source), rows in per_source.items()
+        if source == LONG_FILE
+        and len(rows) >= 3
+        and len(per_source.get((name, WIDE_FILE), [])) >= 4
+        and not any((name, t) in faulted_groups for t in lengths)
+    )
+    chosen = conflicted[int(rng.integers(len(conflicted)))]
+    for i, cell in enumerate(cells):
+        if (cell.canonical, cell.source) == (chosen, LONG_FILE) and cell.trait in lengths:
+            cell.written = _number_text(float(cell.value), "cm", comma=True)
+            cell.kind = "source_conflict"
+            cell.detail = "this source's lengths of the species are in mm under cm (factor 10)"
+            taken.add(i)
+    faulted_groups.update((chosen, t) for t in lengths)
 
     missing = {WIDE_FILE: "", LONG_FILE: "NA", DWCA_FILE: ""}
     for i, cell in enumerate(cells):
