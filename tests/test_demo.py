@@ -96,7 +96,7 @@ def test_another_seed_gives_another_scenario(scenario, tmp_path: Path) -> None: 
 
 
 def test_too_small_a_scenario_is_refused(tmp_path: Path) -> None:
-    with pytest.raises(InputError, match="--tips 20"):
+    with pytest.raises(InputError, match="--tips 30"):
         generate_scenario(tmp_path, tips=5)
     with pytest.raises(InputError, match="--posterior-trees"):
         generate_scenario(tmp_path, posterior_trees=2)
@@ -500,7 +500,7 @@ def test_generate_scenario_command(tmp_path: Path) -> None:
     assert len(tip_labels(read_tree(tmp_path / "s" / "tree.nex"))) == 30
     bad = run_cli("generate-scenario", "--folder", "t", "--tips", "3", cwd=tmp_path)
     assert bad.returncode == 2
-    assert "--tips 20" in bad.stdout + bad.stderr and "Traceback" not in bad.stderr
+    assert "--tips 30" in bad.stdout + bad.stderr and "Traceback" not in bad.stderr
 
 
 def test_demo_pipeline_on_each_backend(store_url: str, tmp_path: Path) -> None:

@@ -40,7 +40,7 @@ def demo_command(
 def generate_scenario_command(
     folder: Annotated[str, typer.Option(help="Folder to write the scenario into.")] = "samples",
     seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = DEFAULT_SEED,
-    tips: Annotated[int, typer.Option(help="Tips of the dated tree (20 or more).")] = 200,
+    tips: Annotated[int, typer.Option(help="Tips of the dated tree (30 or more).")] = 200,
     posterior_trees: Annotated[
         int, typer.Option(help="Trees in the posterior sample (5 or more).")
     ] = 50,

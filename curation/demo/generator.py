@@ -334,7 +334,7 @@ def generate_scenario(
     Args:
         seed: seed of the NumPy random generator; the same seed, tips and
             posterior_trees give byte-identical files.
-        tips: number of tips of the dated tree (at least 20).
+        tips: number of tips of the dated tree (at least 30).
         posterior_trees: number of trees in the posterior sample (at least 5).
 
     Returns:
@@ -344,11 +344,11 @@ def generate_scenario(
         InputError: ``tips`` or ``posterior_trees`` too small for the defects
             the scenario plants.
     """
-    if tips < 20:
+    if tips < 30:
         raise InputError(
             f"tips={tips} is too few for the planted defects",
             field="tips",
-            hint="give --tips 20 or more",
+            hint="give --tips 30 or more",
         )
     if posterior_trees < 5:
         raise InputError(

@@ -311,7 +311,7 @@ def plant_faults(cells: list[Cell], rng: np.random.Generator) -> None:
         and len(per_source.get((name, WIDE_FILE), [])) >= 4
         and not any((name, t) in faulted_groups for t in lengths)
     )
-    chosen = conflicted[int(rng.integers(len(conflicted)))]
+    chosen = conflicted[int(rng.integers(len(conflicted)))] if conflicted else None
     for i, cell in enumerate(cells):
         if (cell.canonical, cell.source) == (chosen, LONG_FILE) and cell.trait in lengths:
             cell.written = _number_text(float(cell.value), "cm", comma=True)
