@@ -36,10 +36,26 @@ REPO = Path(__file__).resolve().parents[1]
 SAMPLES = REPO / "samples"
 
 
+# Tips and posterior trees of each scenario the tests read, by seed.
+SIZES = {DEFAULT_SEED: (200, 50), 5: (45, 8)}
+
+
 @pytest.fixture(scope="module")
-def scenario(tmp_path_factory: pytest.TempPathFactory):  # type: ignore[no-untyped-def]
-    """The default scenario, generated afresh."""
+def default_scenario(tmp_path_factory: pytest.TempPathFactory):  # type: ignore[no-untyped-def]
+    """The default scenario (the committed samples), generated afresh."""
     return generate_scenario(tmp_path_factory.mktemp("scenario"))
+
+
+@pytest.fixture(scope="module", params=["default", "small"])
+def scenario(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory):  # type: ignore[no-untyped-def]
+    """The default scenario and a small one of another seed: what the truth
+    promises must hold for any seed."""
+    if request.param == "default":
+        return request.getfixturevalue("default_scenario")
+    tips, trees = SIZES[5]
+    return generate_scenario(
+        tmp_path_factory.mktemp("small"), seed=5, tips=tips, posterior_trees=trees
+    )
 
 
 def read_tree(path: Path) -> dendropy.Tree:
@@ -74,23 +90,26 @@ def test_writes_every_file(scenario) -> None:  # type: ignore[no-untyped-def]
 
 
 def test_same_seed_gives_byte_identical_files(scenario, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
-    again = generate_scenario(tmp_path / "again")
+    tips, trees = SIZES[scenario.seed]
+    again = generate_scenario(
+        tmp_path / "again", seed=scenario.seed, tips=tips, posterior_trees=trees
+    )
     for first, second in zip(scenario.all_files(), again.all_files(), strict=True):
         assert first.read_bytes() == second.read_bytes(), first.name
 
 
-def test_committed_samples_are_what_the_default_seed_writes(scenario) -> None:  # type: ignore[no-untyped-def]
+def test_committed_samples_are_what_the_default_seed_writes(default_scenario) -> None:  # type: ignore[no-untyped-def]
     committed = scenario_files(SAMPLES, seed=DEFAULT_SEED)
-    for fresh, stored in zip(scenario.all_files(), committed.all_files(), strict=True):
+    for fresh, stored in zip(default_scenario.all_files(), committed.all_files(), strict=True):
         assert stored.read_bytes() == fresh.read_bytes(), (
             f"samples/{stored.relative_to(SAMPLES)} is stale: run "
             "tipledger generate-scenario --folder samples"
         )
 
 
-def test_another_seed_gives_another_scenario(scenario, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+def test_another_seed_gives_another_scenario(default_scenario, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
     other = generate_scenario(tmp_path / "other", seed=7, tips=60, posterior_trees=8)
-    assert other.tree.read_bytes() != scenario.tree.read_bytes()
+    assert other.tree.read_bytes() != default_scenario.tree.read_bytes()
     assert len(tip_labels(read_tree(other.tree))) == 60
     assert len(read_posterior(other.posterior)) == 8
 
@@ -110,7 +129,7 @@ def test_dated_tree_reads_in_dendropy_and_is_ultrametric_to_rounding(scenario) -
     truth = json.loads(scenario.truth_trees.read_text(encoding="utf-8"))
     tree = read_tree(scenario.tree)
     labels = tip_labels(tree)
-    assert len(labels) == truth["tips"] == 200
+    assert len(labels) == truth["tips"] == SIZES[scenario.seed][0]
     assert all(" " not in label for label in labels)
     assert tree.is_rooted
     tolerance = rounding_tolerance(tree, truth["decimals"])
@@ -155,7 +174,7 @@ def test_planted_tree_defects_are_where_the_truth_says(scenario) -> None:  # typ
 def test_posterior_set_reads_with_its_comments_apart_from_labels(scenario) -> None:  # type: ignore[no-untyped-def]
     truth = json.loads(scenario.truth_trees.read_text(encoding="utf-8"))["posterior"]
     trees = read_posterior(scenario.posterior)
-    assert len(trees) == truth["trees"] == 50
+    assert len(trees) == truth["trees"] == SIZES[scenario.seed][1]
     reference = tip_labels(read_tree(scenario.tree))
     lnp = []
     for tree in trees:
@@ -274,20 +293,6 @@ def test_every_written_name_has_a_truth_and_true_tips_exist(scenario) -> None:  
     with_tip = names[names["true_tip"] != ""]
     assert set(with_tip["true_tip"]) <= tips
     assert set(names.loc[names["true_tip"] == "", "kind"]) == {"no_tip", "sp_qualifier"}
-    kinds = set(names["kind"])
-    for kind in (
-        "authority",
-        "underscore",
-        "tip_label",
-        "typo",
-        "synonym",
-        "gender_variant",
-        "cf_qualifier",
-        "sp_qualifier",
-        "no_tip",
-        "spelling_variant",
-    ):
-        assert kind in kinds, kind
     # Corruptions stay close to their true name: a typo is one edit
     # (Damerau-Levenshtein distance by jellyfish, an independent implementation).
     for row in names[names["kind"] == "typo"].itertuples():
@@ -336,6 +341,34 @@ def test_planted_faults_point_at_the_rows_that_hold_them(scenario) -> None:  # t
             occurrence = by_occurrence.loc[record["id"]]
             specimen = (occurrence["institutionCode"], occurrence["catalogNumber"])
         assert specimen == (fault.institution, fault.catalog_number)
+    # A duplicate is a specimen (institution + catalogue number) that the
+    # wide source holds too.
+    held = set(zip(wide["institution"], wide["catalog_number"], strict=True))
+    for fault in faults[faults["kind"] == "duplicate"].itertuples():
+        assert (fault.institution, fault.catalog_number) in held
+    # An exact duplicate repeats the row before it.
+    for fault in faults[faults["kind"] == "exact_duplicate"].itertuples():
+        row = int(fault.row) - 1
+        assert long.iloc[row].tolist() == long.iloc[row - 1].tolist()
+
+
+def test_default_scenario_plants_every_kind(default_scenario) -> None:  # type: ignore[no-untyped-def]
+    names = pd.read_csv(default_scenario.truth_names, dtype=str, keep_default_na=False)
+    faults = pd.read_csv(default_scenario.truth_faults, dtype=str, keep_default_na=False)
+    kinds = set(names["kind"])
+    for kind in (
+        "authority",
+        "underscore",
+        "tip_label",
+        "typo",
+        "synonym",
+        "gender_variant",
+        "cf_qualifier",
+        "sp_qualifier",
+        "no_tip",
+        "spelling_variant",
+    ):
+        assert kind in kinds, kind
     kinds = faults["kind"].value_counts()
     for kind in (
         "unit_slip",
@@ -351,15 +384,6 @@ def test_planted_faults_point_at_the_rows_that_hold_them(scenario) -> None:  # t
         "source_conflict",
     ):
         assert kinds.get(kind, 0) >= 1, kind
-    # A duplicate is a specimen (institution + catalogue number) that the
-    # wide source holds too.
-    held = set(zip(wide["institution"], wide["catalog_number"], strict=True))
-    for fault in faults[faults["kind"] == "duplicate"].itertuples():
-        assert (fault.institution, fault.catalog_number) in held
-    # An exact duplicate repeats the row before it.
-    for fault in faults[faults["kind"] == "exact_duplicate"].itertuples():
-        row = int(fault.row) - 1
-        assert long.iloc[row].tolist() == long.iloc[row - 1].tolist()
 
 
 def test_unit_slips_are_off_by_the_factor_the_truth_names(scenario) -> None:  # type: ignore[no-untyped-def]
