@@ -24,8 +24,10 @@ from rapidfuzz import process
 from rapidfuzz.distance import Levenshtein
 
 from curation.demo import naming
+from curation.demo.archives import ArchiveTable, csv_text, write_archive
 from curation.demo.phylogeny import TimeTree, simulate_pure_birth
 from curation.demo.scenario import (
+    CHECKLIST_FILE,
     DEFAULT_SEED,
     DWCA_FILE,
     LONG_FILE,
@@ -37,7 +39,6 @@ from curation.demo.scenario import (
     Species,
 )
 from curation.demo.sources import (
-    csv_text,
     draw_specimens,
     plant_faults,
     render_values,
@@ -69,6 +70,7 @@ class ScenarioFiles(BaseModel):
     traits_long: Path
     darwin_core: Path
     synonyms: Path
+    checklist: Path
     trait_definitions: Path
     truth_names: Path
     truth_faults: Path
@@ -207,8 +209,11 @@ def _species_traits(
 def _make_synonyms(
     species: list[Species], extras: list[Species], rng: np.random.Generator
 ) -> tuple[pd.DataFrame, dict[str, str]]:
-    """A synonym table: genus transfers and replaced epithets. Returns the
-    table and, per accepted name, the synonym sources write."""
+    """Synonyms: genus transfers (homotypic: the same type in another
+    combination) and replaced epithets (heterotypic). Returns them with
+    columns synonym (as written, sometimes with an authority), bare name,
+    authority, status and accepted_name; and, per accepted name, the
+    synonym the sources write."""
     rows: list[dict[str, str]] = []
     used: dict[str, str] = {}
     chosen = rng.choice(
@@ -220,20 +225,82 @@ def _make_synonyms(
         if rng.random() < 0.5:
             old_genus, old_gender = naming.OLD_GENERA[int(rng.integers(len(naming.OLD_GENERA)))]
             epithet = naming.agree(sp.epithet, sp.kind, sp.gender, old_gender)
-            synonym = f"{old_genus} {epithet}"
+            synonym, status = f"{old_genus} {epithet}", "homotypic synonym"
         else:
             epithet, _ = _unique_epithet(rng, sp.genus, sp.gender, taken)
-            synonym = f"{sp.genus} {epithet}"
+            synonym, status = f"{sp.genus} {epithet}", "heterotypic synonym"
         taken.append(synonym)
-        written = synonym + (f" {_authority(rng)}" if rng.random() < 0.3 else "")
-        rows.append({"synonym": written, "accepted_name": sp.canonical})
+        author = _authority(rng) if rng.random() < 0.3 else ""
+        rows.append(
+            {
+                "synonym": f"{synonym} {author}".strip(),
+                "bare": synonym,
+                "authority": author,
+                "status": status,
+                "accepted_name": sp.canonical,
+            }
+        )
         used[sp.canonical] = synonym
     for sp in extras[:1]:
         old_genus, old_gender = naming.OLD_GENERA[0]
         epithet = naming.agree(sp.epithet, sp.kind, sp.gender, old_gender)
-        rows.append({"synonym": f"{old_genus} {epithet}", "accepted_name": sp.canonical})
+        synonym = f"{old_genus} {epithet}"
+        rows.append(
+            {
+                "synonym": synonym,
+                "bare": synonym,
+                "authority": "",
+                "status": "homotypic synonym",
+                "accepted_name": sp.canonical,
+            }
+        )
     table = pd.DataFrame(rows).sort_values("synonym", kind="stable").reset_index(drop=True)
     return table, used
+
+
+def _write_checklist(
+    path: Path, species: list[Species], extras: list[Species], synonyms: pd.DataFrame
+) -> None:
+    """A Darwin Core Taxon checklist: every accepted species with its
+    authorship, and the synonyms pointing at them by acceptedNameUsageID
+    (Darwin Core terms, TDWG)."""
+    accepted = sorted(species + extras, key=lambda sp: sp.canonical)
+    ids = {sp.canonical: f"vq-{i + 1:04d}" for i, sp in enumerate(accepted)}
+    rows = [
+        {
+            "taxonID": ids[sp.canonical],
+            "scientificName": sp.canonical,
+            "scientificNameAuthorship": sp.authority,
+            "genus": sp.genus,
+            "specificEpithet": sp.epithet,
+            "taxonRank": "species",
+            "taxonomicStatus": "accepted",
+            "acceptedNameUsageID": "",
+        }
+        for sp in accepted
+    ]
+    for i, row in enumerate(synonyms.itertuples(), len(accepted) + 1):
+        genus, epithet = str(row.bare).split(" ", 1)
+        rows.append(
+            {
+                "taxonID": f"vq-{i:04d}",
+                "scientificName": row.bare,
+                "scientificNameAuthorship": row.authority,
+                "genus": genus,
+                "specificEpithet": epithet,
+                "taxonRank": "species",
+                "taxonomicStatus": row.status,
+                "acceptedNameUsageID": ids[str(row.accepted_name)],
+            }
+        )
+    write_archive(
+        path,
+        ArchiveTable("Taxon", "taxon.txt", pd.DataFrame(rows)),
+        [],
+        package="demo-velquiridae-checklist",
+        title="Checklist of the Velquiridae (invented demo data)",
+        creator="Sarquist",
+    )
 
 
 # --------------------------------------------------------------------------
@@ -303,6 +370,8 @@ QRSM), their towns and the people named are fictional too.
 - `{dwca}`: source 3, a Darwin Core Archive (Occurrence core with the
   MeasurementOrFact extension).
 - `synonyms.csv`: synonym and accepted name.
+- `{checklist}`: the same synonyms in a Darwin Core Taxon checklist
+  (taxonomicStatus, acceptedNameUsageID), with every accepted species.
 - `traits.toml`: trait definitions (units, scales, ranges, states).
 - `truth/names.csv`: what every written name really is (its tip, or none).
 - `truth/faults.csv`: every planted fault in the trait sources, by file,
@@ -369,7 +438,9 @@ def generate_scenario(
     plant_faults(cells, rng)
     faults = write_sources(root, cells, rng, name_truth)
 
-    (root / "synonyms.csv").write_text(csv_text(synonym_table, ","), encoding="utf-8", newline="\n")
+    table = synonym_table[["synonym", "accepted_name"]]
+    (root / "synonyms.csv").write_text(csv_text(table, ","), encoding="utf-8", newline="\n")
+    _write_checklist(root / CHECKLIST_FILE, species, extras, synonym_table)
     (root / "traits.toml").write_text(_definitions_toml(), encoding="utf-8", newline="\n")
 
     tip_of = {sp.canonical: sp.tip_label for sp in species}
@@ -422,6 +493,7 @@ def generate_scenario(
         wide=WIDE_FILE,
         long=LONG_FILE,
         dwca=DWCA_FILE,
+        checklist=CHECKLIST_FILE,
     )
     (root / "README.md").write_text(readme, encoding="utf-8", newline="\n")
     return scenario_files(root, seed=seed)
@@ -440,6 +512,7 @@ def scenario_files(folder: str | Path, *, seed: int = DEFAULT_SEED) -> ScenarioF
         traits_long=root / LONG_FILE,
         darwin_core=root / DWCA_FILE,
         synonyms=root / "synonyms.csv",
+        checklist=root / CHECKLIST_FILE,
         trait_definitions=root / "traits.toml",
         truth_names=truth / "names.csv",
         truth_faults=truth / "faults.csv",

@@ -146,7 +146,9 @@ def _step_import_trees(context: DemoContext) -> str:
 def _step_import_synonyms(context: DemoContext) -> str:
     import_synonyms = _function("curation.imports", "import_synonyms")
     _import_once(context, import_synonyms, context.files.synonyms)
-    return f"synonym table {context.files.synonyms.name}"
+    _import_once(context, import_synonyms, context.files.checklist)
+    table, checklist = context.files.synonyms.name, context.files.checklist.name
+    return f"synonym table {table}, Darwin Core Taxon checklist {checklist}"
 
 
 def _step_import_traits(context: DemoContext) -> str:

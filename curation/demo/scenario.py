@@ -8,6 +8,7 @@ import re
 from dataclasses import dataclass
 
 __all__ = [
+    "CHECKLIST_FILE",
     "VOUCHER_SUFFIX",
     "ZIP_TIME",
     "DEFAULT_SEED",
@@ -49,6 +50,7 @@ STATE_VARIANTS = {
 WIDE_FILE = "traits_wide.csv"
 LONG_FILE = "traits_long.tsv"
 DWCA_FILE = "occurrences_dwca.zip"
+CHECKLIST_FILE = "checklist_dwca.zip"
 DWC = "http://rs.tdwg.org/dwc/terms/"
 VOUCHER_SUFFIX = re.compile(r"_(V\d{4}|2)$")
 # Fixed time inside the zip so that the archive is byte-identical per seed.

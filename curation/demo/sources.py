@@ -5,28 +5,25 @@ Archive)."""
 
 from __future__ import annotations
 
-import io
-import zipfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from curation.demo import naming
+from curation.demo.archives import ArchiveTable, csv_text, write_archive
 from curation.demo.scenario import (
-    DWC,
     DWCA_FILE,
     LONG_FILE,
     STATE_VARIANTS,
     STATES,
     TRAITS,
     WIDE_FILE,
-    ZIP_TIME,
     Cell,
     Species,
 )
 
-__all__ = ["csv_text", "draw_specimens", "plant_faults", "render_values", "write_sources"]
+__all__ = ["draw_specimens", "plant_faults", "render_values", "write_sources"]
 
 
 _NAME_KINDS = [
@@ -326,12 +323,6 @@ def plant_faults(cells: list[Cell], rng: np.random.Generator) -> None:
             cell.written, cell.kind, cell.detail = missing[cell.source], "missing", "no value"
 
 
-def csv_text(frame: pd.DataFrame, sep: str) -> str:
-    buffer = io.StringIO()
-    frame.to_csv(buffer, sep=sep, index=False, lineterminator="\n")
-    return buffer.getvalue()
-
-
 _SEX_WORD = {"F": "female", "M": "male"}
 
 
@@ -511,68 +502,12 @@ def write_sources(
                 }
             )
             fault(DWCA_FILE, "measurementorfact.txt", len(facts), 1, c, c.unit)
-    _write_archive(folder / DWCA_FILE, pd.DataFrame(occurrences), pd.DataFrame(facts))
-    return faults
-
-
-def _meta_xml(occurrence_columns: list[str], fact_columns: list[str]) -> str:
-    """meta.xml as the Darwin Core text guide describes it (TDWG,
-    https://dwc.tdwg.org/text/): a core with an id, an extension with a
-    coreid, and each field mapped to its term URI."""
-
-    def fields(columns: list[str], skip: int) -> list[str]:
-        return [
-            f'    <field index="{i}" term="{DWC}{name}"/>'
-            for i, name in enumerate(columns)
-            if i >= skip
-        ]
-
-    attributes = (
-        'encoding="UTF-8" fieldsTerminatedBy="\\t" linesTerminatedBy="\\n" '
-        'fieldsEnclosedBy="" ignoreHeaderLines="1"'
+    write_archive(
+        folder / DWCA_FILE,
+        ArchiveTable("Occurrence", "occurrence.txt", pd.DataFrame(occurrences)),
+        [ArchiveTable("MeasurementOrFact", "measurementorfact.txt", pd.DataFrame(facts))],
+        package="demo-ihlv-velquiridae",
+        title="Velquiridae specimens of the Institute of Highland Life, Veldmar (invented)",
+        creator="Obenhale",
     )
-    lines = [
-        '<?xml version="1.0" encoding="UTF-8"?>',
-        '<archive xmlns="http://rs.tdwg.org/dwc/text/" metadata="eml.xml">',
-        f'  <core {attributes} rowType="{DWC}Occurrence">',
-        "    <files><location>occurrence.txt</location></files>",
-        '    <id index="0"/>',
-        *fields(occurrence_columns, 0),
-        "  </core>",
-        f'  <extension {attributes} rowType="{DWC}MeasurementOrFact">',
-        "    <files><location>measurementorfact.txt</location></files>",
-        '    <coreid index="0"/>',
-        *fields(fact_columns, 1),
-        "  </extension>",
-        "</archive>",
-        "",
-    ]
-    return "\n".join(lines)
-
-
-_EML = """<?xml version="1.0" encoding="UTF-8"?>
-<eml:eml xmlns:eml="eml://ecoinformatics.org/eml-2.1.1"
-         packageId="demo-ihlv-velquiridae" system="tipledger-demo">
-  <dataset>
-    <title>Velquiridae specimens of the Institute of Highland Life, Veldmar
-      (invented demo data)</title>
-    <creator><individualName><surName>Obenhale</surName></individualName></creator>
-    <intellectualRights><para>Invented data for demonstration; CC0.</para></intellectualRights>
-  </dataset>
-</eml:eml>
-"""
-
-
-def _write_archive(path: Path, occurrences: pd.DataFrame, facts: pd.DataFrame) -> None:
-    members = {
-        "meta.xml": _meta_xml(list(occurrences.columns), list(facts.columns)),
-        "eml.xml": _EML,
-        "occurrence.txt": csv_text(occurrences, "\t"),
-        "measurementorfact.txt": csv_text(facts, "\t"),
-    }
-    with zipfile.ZipFile(path, "w") as archive:
-        for name, text in members.items():
-            info = zipfile.ZipInfo(name, date_time=ZIP_TIME)
-            info.compress_type = zipfile.ZIP_DEFLATED
-            info.external_attr = 0o644 << 16
-            archive.writestr(info, text.encode("utf-8"))
+    return faults
