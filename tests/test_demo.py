@@ -311,7 +311,7 @@ def test_checklist_is_a_darwin_core_taxon_core_of_the_same_synonyms(scenario) ->
     synonyms = taxa[taxa["taxonomicStatus"] != "accepted"]
     assert taxa["taxonID"].is_unique
     assert set(synonyms["acceptedNameUsageID"]) <= set(accepted["taxonID"])
-    assert set(synonyms["taxonomicStatus"]) <= {"homotypic synonym", "heterotypic synonym"}
+    assert set(synonyms["taxonomicStatus"]) <= {"homotypicSynonym", "heterotypicSynonym"}
     names = dict(zip(accepted["taxonID"], accepted["scientificName"], strict=True))
     pairs = {
         (s, names[a])

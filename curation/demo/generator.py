@@ -225,10 +225,10 @@ def _make_synonyms(
         if rng.random() < 0.5:
             old_genus, old_gender = naming.OLD_GENERA[int(rng.integers(len(naming.OLD_GENERA)))]
             epithet = naming.agree(sp.epithet, sp.kind, sp.gender, old_gender)
-            synonym, status = f"{old_genus} {epithet}", "homotypic synonym"
+            synonym, status = f"{old_genus} {epithet}", "homotypicSynonym"
         else:
             epithet, _ = _unique_epithet(rng, sp.genus, sp.gender, taken)
-            synonym, status = f"{sp.genus} {epithet}", "heterotypic synonym"
+            synonym, status = f"{sp.genus} {epithet}", "heterotypicSynonym"
         taken.append(synonym)
         author = _authority(rng) if rng.random() < 0.3 else ""
         rows.append(
@@ -250,7 +250,7 @@ def _make_synonyms(
                 "synonym": synonym,
                 "bare": synonym,
                 "authority": "",
-                "status": "homotypic synonym",
+                "status": "homotypicSynonym",
                 "accepted_name": sp.canonical,
             }
         )

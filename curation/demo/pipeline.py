@@ -188,7 +188,7 @@ def _step_import_traits(context: DemoContext) -> str:
 
 def _step_import_darwin_core(context: DemoContext) -> str:
     import_darwin_core = _function("curation.imports", "import_darwin_core")
-    _import_once(context, import_darwin_core, context.files.darwin_core)
+    _import_once(context, import_darwin_core, context.files.darwin_core, priority=30)
     return f"Darwin Core Archive {context.files.darwin_core.name}"
 
 
