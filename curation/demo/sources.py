@@ -53,7 +53,7 @@ def _write_name(
     if kind == "tip_label" and sp.tip_label and sp.tip_label != f"{g}_{e}":
         return sp.tip_label, kind
     if kind == "case_spacing":
-        forms = [f"{g.upper()} {e.upper()}", f"{g.lower()}  {e}", f" {g} {e.capitalize()} "]
+        forms = [f"{g.upper()} {e.upper()}", f"{g.lower()}  {e}", f"{g} {e.capitalize()}"]
         return forms[int(rng.integers(len(forms)))], kind
     if kind == "typo":
         if rng.random() < 0.25:
