@@ -251,18 +251,25 @@ def _need(context: DemoContext, key: str) -> Any:
 
 
 def _describe(report: Any) -> str:
-    """A one-line account of a stage's report: its own summary if it has
-    one, else its counts."""
+    """A one-line account of a stage's report: its own sentence if it has
+    one, else its counts (integer fields and mappings of them)."""
     for attribute in ("sentence", "summary_line", "describe"):
         value = getattr(report, attribute, None)
         if callable(value):
             value = value()
         if isinstance(value, str):
             return value
-    counts = getattr(report, "counts", None)
-    if isinstance(counts, dict):
-        return ", ".join(f"{k}: {v}" for k, v in counts.items())
-    return type(report).__name__
+    fields = report.model_dump() if isinstance(report, BaseModel) else {}
+    parts: list[str] = []
+    for key, value in fields.items():
+        if isinstance(value, bool):
+            continue
+        if isinstance(value, int):
+            parts.append(f"{key.replace('_', ' ')}: {value}")
+        elif isinstance(value, dict) and value and all(isinstance(v, int) for v in value.values()):
+            inner = ", ".join(f"{k}: {v}" for k, v in value.items())
+            parts.append(f"{key.replace('_', ' ')}: {inner}")
+    return "; ".join(parts[:8]) or type(report).__name__
 
 
 # Steps in the order the data flows; each needs what those before it stored.

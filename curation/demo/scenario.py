@@ -42,7 +42,7 @@ TRAITS: dict[str, dict[str, object]] = {
 }
 STATES = ["diurnal", "nocturnal", "cathemeral"]
 STATE_VARIANTS = {
-    "diurnal": ["Diurnal", "day-active", "diurnal "],
+    "diurnal": ["Diurnal", "day-active", "DIURNAL"],
     "nocturnal": ["Nocturnal", "noct.", "night-active"],
     "cathemeral": ["Cathemeral", "cathemeral (both)"],
 }
