@@ -259,7 +259,8 @@ def _describe(report: Any) -> str:
             value = value()
         if isinstance(value, str):
             return value
-    fields = report.model_dump() if isinstance(report, BaseModel) else {}
+    names = type(report).model_fields if isinstance(report, BaseModel) else {}
+    fields = {name: getattr(report, name) for name in names}
     parts: list[str] = []
     for key, value in fields.items():
         if isinstance(value, bool):
