@@ -29,6 +29,7 @@ from curation.demo.benchmark_data import (
     generate_names,
     generate_tip_labels,
     generate_tree,
+    generate_tree_set,
 )
 from curation.demo.generator import DEFAULT_SEED, scenario_files
 from curation.errors import InputError
@@ -163,6 +164,7 @@ def test_planted_tree_defects_are_where_the_truth_says(scenario) -> None:  # typ
         assert node.edge.length == 0.0 and not node.is_leaf()
     zero_internal = [n for n in tree.internal_nodes() if n.edge.length == 0.0]
     assert len(zero_internal) == len(truth["zero_length_internal"]) == 2
+    assert min(n.edge.length for n in tree.preorder_node_iter() if n.parent_node) >= 0
     zero_tips = sorted(n.taxon.label for n in tree.leaf_node_iter() if n.edge.length == 0.0)
     assert zero_tips == truth["zero_length_terminal"] and len(zero_tips) == 2
     assert truth["voucher_labels"] and set(truth["voucher_labels"]) <= labels
@@ -188,6 +190,8 @@ def test_posterior_set_reads_with_its_comments_apart_from_labels(scenario) -> No
         ]
         assert all(float(rate) > 0 for rate in rates)
         tree.calc_node_ages(ultrametricity_precision=rounding_tolerance(tree, truth["decimals"]))
+        # No sample has a negative branch (a child older than its parent).
+        assert min(n.edge.length for n in tree.preorder_node_iter() if n.parent_node) >= 0
     burn_in = truth["burn_in"]
     # The burn-in is worth skipping: every early sample is far below the plateau.
     assert max(lnp[:burn_in]) < min(lnp[burn_in:]) - 100
@@ -514,6 +518,22 @@ def test_benchmark_tree_is_ultrametric_in_dendropy() -> None:
     assert all(len(n.child_nodes()) == 2 for n in tree.internal_nodes())
     tree.calc_node_ages(ultrametricity_precision=rounding_tolerance(tree, 6))
     assert tree.seed_node.age == pytest.approx(100.0, abs=1e-3)
+
+
+def test_benchmark_tree_set_shares_its_tips_and_stays_ultrametric() -> None:
+    trees = dendropy.TreeList.get(
+        data=generate_tree_set(12, 80, seed=4),
+        schema="nexus",
+        preserve_underscores=True,
+        extract_comment_metadata=True,
+    )
+    assert len(trees) == 12
+    first = tip_labels(trees[0])
+    for tree in trees:
+        assert tip_labels(tree) == first and len(first) == 80
+        assert float(tree.annotations.get_value("lnP")) < 0
+        tree.calc_node_ages(ultrametricity_precision=rounding_tolerance(tree, 5))
+        assert min(n.edge.length for n in tree.preorder_node_iter() if n.parent_node) >= 0
 
 
 def test_benchmark_measurements_have_the_asked_shape_and_planted_faults() -> None:

@@ -21,6 +21,7 @@ import pandas as pd
 
 from curation.demo import naming
 from curation.demo.phylogeny import simulate_pure_birth, write_newick_body
+from curation.demo.treefiles import nexus_text, numbered_tips, perturbed_copy
 
 __all__ = [
     "BenchmarkNames",
@@ -29,6 +30,7 @@ __all__ = [
     "generate_names",
     "generate_tip_labels",
     "generate_tree",
+    "generate_tree_set",
 ]
 
 BENCH_SEED = 20261202
@@ -199,6 +201,35 @@ def generate_tree(n_tips: int, *, seed: int = BENCH_SEED, decimals: int = 6) -> 
         tree.labels[int(node)] = label
     body, _ = write_newick_body(tree, decimals=decimals)
     return f"[&R] {body};"
+
+
+def generate_tree_set(
+    n_trees: int, n_tips: int, *, seed: int = BENCH_SEED, decimals: int = 5
+) -> str:
+    """Return NEXUS text of a posterior-like sample: ``n_trees`` trees over
+    the same ``n_tips`` tips (TAXA and TRANSLATE blocks), each a perturbed
+    copy of one pure-birth tree (a few interchanges, jittered ages), with
+    ``[&lnP=...]`` header and ``[&rate=...]`` branch comments.
+    """
+    rng = np.random.default_rng(seed)
+    base = simulate_pure_birth(n_tips, rng, root_age=100.0, groups=max(1, n_tips // 25))
+    tips = base.tips()
+    genus, epithet, _, _ = _binomials(base.group[tips], rng)
+    for node, label in zip(tips, _labels(genus, epithet, rng), strict=True):
+        base.labels[int(node)] = label
+    labels = sorted(base.labels[int(n)] for n in tips)
+    translate = {label: i + 1 for i, label in enumerate(labels)}
+    lines = []
+    for index in range(n_trees):
+        tree = perturbed_copy(base, rng, int(rng.integers(0, 4)), 0.08)
+        rates = rng.lognormal(-4.5, 0.3, size=len(tree.parent))
+        comments = {n: f"[&rate={rates[n]:.4f}]" for n in range(1, len(tree.parent))}
+        body, _ = write_newick_body(
+            tree, decimals=decimals, names=numbered_tips(tree, translate), comments=comments
+        )
+        lnp = -6150.0 + float(rng.normal(0, 6))
+        lines.append(f"    TREE STATE_{index * 1000} [&lnP={lnp:.2f}] = [&R] {body};")
+    return nexus_text(lines, labels, "Invented benchmark tree set.", translate)
 
 
 def benchmark_trait_definitions(n_traits: int) -> pd.DataFrame:

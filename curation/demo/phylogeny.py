@@ -117,10 +117,13 @@ def simulate_pure_birth(
 
 def children_lists(tree: TimeTree) -> list[list[int]]:
     """Children of every node (living nodes only), in node order."""
-    children: list[list[int]] = [[] for _ in range(len(tree.parent))]
-    for node in np.flatnonzero(tree.alive & (tree.parent >= 0)):
-        children[int(tree.parent[node])].append(int(node))
-    return children
+    nodes = np.flatnonzero(tree.alive & (tree.parent >= 0))
+    parents = tree.parent[nodes]
+    order = np.argsort(parents, kind="stable")
+    starts = np.searchsorted(parents[order], np.arange(len(tree.parent) + 1))
+    grouped = nodes[order].tolist()
+    bounds = starts.tolist()
+    return [grouped[bounds[i] : bounds[i + 1]] for i in range(len(tree.parent))]
 
 
 def collapse_branch(tree: TimeTree, node: int) -> None:
@@ -154,6 +157,14 @@ def write_newick_body(
     children = children_lists(tree)
     names = names or {}
     comments = comments or {}
+    # Lengths formatted once, from Python floats (much faster than NumPy
+    # scalars one by one); the root has none.
+    up = tree.parent.tolist()
+    heights = tree.height.tolist()
+    length_text = [
+        f":{heights[p] - h:.{decimals}f}" if p >= 0 else ""
+        for p, h in zip(up, heights, strict=True)
+    ]
     parts: list[str] = []
     first_tip: dict[int, int] = {}
     pairs: dict[int, tuple[int, int]] = {}
@@ -180,7 +191,5 @@ def write_newick_body(
             parts.append(names.get(node, tree.labels[node]))
         if node in comments:
             parts.append(comments[node])
-        if tree.parent[node] >= 0:
-            length = tree.height[tree.parent[node]] - tree.height[node]
-            parts.append(f":{length:.{decimals}f}")
+        parts.append(length_text[node])
     return "".join(parts), pairs

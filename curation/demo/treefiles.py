@@ -11,7 +11,7 @@ import numpy as np
 from curation.demo.phylogeny import TimeTree, children_lists, collapse_branch, write_newick_body
 from curation.demo.scenario import POSTERIOR_DECIMALS, ROOT_AGE, TREE_DECIMALS, VOUCHER_SUFFIX
 
-__all__ = ["write_tree_files"]
+__all__ = ["nexus_text", "numbered_tips", "perturbed_copy", "write_tree_files"]
 
 
 def _nexus_token(text: str) -> str:
@@ -61,9 +61,11 @@ def _plant_tree_defects(tree: TimeTree, rng: np.random.Generator) -> dict[str, l
     }
 
 
-def _nexus(
+def nexus_text(
     tree_lines: list[str], labels: list[str], comment: str, translate: dict[str, int]
 ) -> str:
+    """A NEXUS file: a TAXA block of ``labels``, then a TREES block with a
+    TRANSLATE table (number -> label) and ``tree_lines``."""
     lines = ["#NEXUS", "", f"[{comment}]", "", "BEGIN TAXA;"]
     lines.append(f"    DIMENSIONS NTAX={len(labels)};")
     lines.append("    TAXLABELS")
@@ -77,7 +79,8 @@ def _nexus(
     return "\n".join(lines)
 
 
-def _tip_names(tree: TimeTree, translate: dict[str, int]) -> dict[int, str]:
+def numbered_tips(tree: TimeTree, translate: dict[str, int]) -> dict[int, str]:
+    """The TRANSLATE number written for each tip node."""
     return {int(n): str(translate[tree.labels[n]]) for n in tree.tips()}
 
 
@@ -103,9 +106,10 @@ def _max_spread(tree: TimeTree, decimals: int) -> float:
     return float(max(spread) - min(spread))
 
 
-def _posterior_tree(
-    base: TimeTree, rng: np.random.Generator, swaps: int, jitter: float
-) -> TimeTree:
+def perturbed_copy(base: TimeTree, rng: np.random.Generator, swaps: int, jitter: float) -> TimeTree:
+    """A copy of ``base`` as an MCMC sample might hold it: ``swaps``
+    nearest-neighbour interchanges and node ages jittered by a lognormal
+    factor of sd ``jitter``; still ultrametric."""
     tree = base.copy()
     for _ in range(swaps):
         # Nearest-neighbour interchange, kept only where the heights allow it.
@@ -119,18 +123,20 @@ def _posterior_tree(
         sibling = siblings[0]
         if tree.height[sibling] < tree.height[node]:
             tree.parent[moved], tree.parent[sibling] = up, node
-    # Jitter the ages: scale each node's gap above its oldest child.
+    # Jitter the ages: scale each node's gap above its oldest child, from
+    # the present backwards. Ascending age is a valid order for that (every
+    # child is younger than its parent); node numbers are not, once
+    # interchanges have moved subtrees.
     children = children_lists(tree)
-    new_height = tree.height.copy()
-    for node in range(len(tree.parent) - 1, -1, -1):
+    old = tree.height.tolist()
+    new = list(old)
+    internal = [n for n in np.argsort(tree.height, kind="stable").tolist() if children[n]]
+    factors = rng.lognormal(0.0, jitter, size=len(internal)).tolist()
+    for node, factor in zip(internal, factors, strict=True):
         kids = children[node]
-        if not kids:
-            continue
-        oldest = max(tree.height[c] for c in kids)
-        new_oldest = max(new_height[c] for c in kids)
-        gap = (tree.height[node] - oldest) * float(rng.lognormal(0.0, jitter))
-        new_height[node] = new_oldest + gap
-    tree.height = new_height
+        oldest = max(old[c] for c in kids)
+        new[node] = max(new[c] for c in kids) + (old[node] - oldest) * factor
+    tree.height = np.asarray(new)
     return tree
 
 
@@ -142,8 +148,10 @@ def write_tree_files(
 
     main = base.copy()
     planted = _plant_tree_defects(main, rng)
-    body, pairs = write_newick_body(main, decimals=TREE_DECIMALS, names=_tip_names(main, translate))
-    text = _nexus(
+    body, pairs = write_newick_body(
+        main, decimals=TREE_DECIMALS, names=numbered_tips(main, translate)
+    )
+    text = nexus_text(
         [f"    TREE dated_consensus = [&R] {body};"],
         labels,
         "Invented demo scenario: dated tree of the Velquiridae (fictional clade). Ages in Myr.",
@@ -184,7 +192,7 @@ def write_tree_files(
         else:
             swaps, jitter = int(rng.integers(0, 4)), 0.08
             lnp = -6150.0 + float(rng.normal(0, 6))
-        tree = _posterior_tree(base, rng, swaps, jitter)
+        tree = perturbed_copy(base, rng, swaps, jitter)
         children = children_lists(tree)
         internal = [n for n in range(1, len(tree.parent)) if children[n] and tree.parent[n] > 0]
         if index in polytomy_trees:
@@ -200,12 +208,12 @@ def write_tree_files(
             if tree.alive[n]
         }
         body, _ = write_newick_body(
-            tree, decimals=POSTERIOR_DECIMALS, names=_tip_names(tree, translate), comments=rates
+            tree, decimals=POSTERIOR_DECIMALS, names=numbered_tips(tree, translate), comments=rates
         )
         name = f"STATE_{index * 10000}"
         names.append(name)
         lines.append(f"    TREE {name} [&lnP={lnp:.2f}] = [&R] {body};")
-    text = _nexus(
+    text = nexus_text(
         lines,
         labels,
         "Invented demo scenario: posterior sample of dated trees (fictional clade).",
