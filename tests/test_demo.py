@@ -626,3 +626,15 @@ def test_demo_pipeline_on_each_backend(store_url: str, tmp_path: Path) -> None:
         assert sum(counts.measurements.values()) == expected
     elif not any(imported):
         assert sum(counts.measurements.values()) == 0
+    if status["reconcile names"].status == "done":
+        # No automatic acceptance contradicts the ground truth.
+        from curation.store import current_decisions, open_store
+
+        with open_store(store_url) as opened, opened.reading() as session:
+            decisions = current_decisions(session, report.ids["tree_set"])
+        truth = pd.read_csv(files.truth_names, dtype=str, keep_default_na=False)
+        joined = truth.merge(decisions, on="written_name", how="left")
+        assert joined["status"].notna().all(), "every written name has a decision"
+        accepted = joined[joined["status"] == "accepted"]
+        wrong = accepted[accepted["tip_label"] != accepted["true_tip"]]
+        assert wrong.empty, wrong[["written_name", "true_tip", "tip_label", "stage"]]

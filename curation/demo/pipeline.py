@@ -52,6 +52,7 @@ class DemoReport(BaseModel):
     store: str
     samples: str
     steps: list[StepResult]
+    ids: dict[str, int]  # tree_set, posterior_set, tree: what the steps stored
     summary: StoreSummary
 
 
@@ -344,7 +345,12 @@ def run_demo(
         summary = summarise_store(opened)
         shown = opened.display_url()
     return DemoReport(
-        folder=str(target), store=shown, samples=str(files.folder), steps=steps, summary=summary
+        folder=str(target),
+        store=shown,
+        samples=str(files.folder),
+        steps=steps,
+        ids={k: v for k, v in context.results.items() if isinstance(v, int)},
+        summary=summary,
     )
 
 
