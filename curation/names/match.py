@@ -20,7 +20,8 @@ Stages, in order; the first that decides a name wins:
    within a length window), never from all pairs.
 7. ``genus``: only the genus matched; candidates are that genus's tips.
    Never accepted automatically.
-8. ``unmatched``: no candidate.
+8. ``unmatched``: no candidate (``unparseable`` when no genus could be
+   read; such names are reported, never dropped).
 
 Every result carries its score (0-100), the runner-up and the margin to
 it. Only stages 1-6 accept automatically, and only when one tip is clearly
@@ -54,7 +55,17 @@ __all__ = [
     "match_names",
 ]
 
-STAGES = ["exact", "canonical", "synonym", "gender", "spelling", "fuzzy", "genus", "unmatched"]
+STAGES = [
+    "exact",
+    "canonical",
+    "synonym",
+    "gender",
+    "spelling",
+    "fuzzy",
+    "genus",
+    "unmatched",
+    "unparseable",
+]
 MATCH_COLUMNS = [
     "written_name",
     "canonical",
@@ -551,6 +562,7 @@ def match_names(
 
     unparsed = ~parsed["parseable"].to_numpy()
     result.loc[unparsed, "reason"] = "could not parse: " + parsed.loc[unparsed, "reason"]
+    result.loc[unparsed, "stage"] = "unparseable"
     left_open = open_ & ~unparsed
     result.loc[left_open, "reason"] = "no tip came close"
     no_runner = result["runner_up"].isna() & (result["stage"] != "unmatched")

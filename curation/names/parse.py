@@ -268,12 +268,16 @@ def _parse_uncached(written: str) -> ParsedName:
             epithet = lowered
             i += 1
             continue
-        if HAS_DIGIT.search(token) and not authority and suffix is None:
-            if epithet is not None and not YEAR.fullmatch(token.strip("(),")):
-                suffix = token
-                steps.append(f"set aside suffix {token!r}")
-                i += 1
-                continue
+        if (
+            HAS_DIGIT.search(token)
+            and suffix is None
+            and epithet is not None
+            and not YEAR.fullmatch(token.strip("(),"))
+        ):
+            suffix = token
+            steps.append(f"set aside suffix {token!r}")
+            i += 1
+            continue
         starts_author = token[:1].isupper() or token.startswith("(")
         if bare in PARTICLES and i + 1 < n and tokens[i + 1][:1].isupper():
             starts_author = True
