@@ -35,6 +35,8 @@ __all__ = [
     "ReconcileReport",
     "STATUSES",
     "apply_decisions",
+    "check_decisions",
+    "decision_history",
     "candidates_of",
     "decide_name",
     "reconcile_names",
@@ -243,30 +245,15 @@ def _close_tips(label: str, tips: list[str]) -> str:
     return ", ".join(repr(t) for t, _, _ in near) or "none close"
 
 
-def apply_decisions(
-    session: Session,
-    tree_set_id: int,
-    items: list[dict[str, Any]],
-    *,
-    action: str,
-    who: str | None = None,
-    source: str = "review",
-) -> DecisionResult:
-    """Validate and add a person's decisions in ``session``'s transaction,
-    with one ledger event ``action``.
-
-    Each item has ``written_name``, ``status`` (accepted, rejected or
-    pending), ``tip_label`` (required when accepted) and optional ``note``,
-    ``stage`` and ``row`` (the input row, for messages). Every item is
-    checked before anything is added.
-
-    Raises:
-        InputError: listing every problem (unknown status, tip or name).
-    """
+def check_decisions(
+    session: Session, tree_set_id: int, items: list[dict[str, Any]]
+) -> list[Problem]:
+    """Return every problem of a person's decisions (see
+    :func:`apply_decisions`): unknown written names, statuses and tips."""
     tips = tip_labels_of_set(session, tree_set_id)
     tip_set = set(tips)
-    current = current_decisions(session, tree_set_id).set_index("written_name")
-    known = set(written_names(session)) | set(current.index)
+    current = current_decisions(session, tree_set_id)
+    known = set(written_names(session)) | set(current["written_name"])
     problems: list[Problem] = []
     for item in items:
         name, status, tip = item["written_name"], item["status"], item.get("tip_label")
@@ -301,6 +288,31 @@ def apply_decisions(
                     hint="give a tip label exactly as in the tree",
                 )
             )
+    return problems
+
+
+def apply_decisions(
+    session: Session,
+    tree_set_id: int,
+    items: list[dict[str, Any]],
+    *,
+    action: str,
+    who: str | None = None,
+    source: str = "review",
+) -> DecisionResult:
+    """Validate and add a person's decisions in ``session``'s transaction,
+    with one ledger event ``action``.
+
+    Each item has ``written_name``, ``status`` (accepted, rejected or
+    pending), ``tip_label`` (required when accepted) and optional ``note``,
+    ``stage`` and ``row`` (the input row, for messages). Every item is
+    checked before anything is added.
+
+    Raises:
+        InputError: listing every problem (unknown status, tip or name).
+    """
+    problems = check_decisions(session, tree_set_id, items)
+    current = current_decisions(session, tree_set_id).set_index("written_name")
     if problems:
         raise InputError(
             f"{len(problems)} problem(s) in the decisions; nothing was recorded",
