@@ -236,6 +236,9 @@ def test_gallery_of_small_inputs(written: list[str], tips: list[str]) -> None:
     assert result["status"].isin(["accepted", "pending"]).all()
 
 
+TIP_PARTS: dict[str, tuple[str, str]] = {}
+
+
 def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> list[tuple]:
     """Every tip scored against ``written`` in a plain double loop, with the
     matcher's documented rule: genus and epithet folded, OSA distances each
@@ -252,7 +255,9 @@ def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> 
     extra = options.review_extra_edits
     found = []
     for tip in tips:
-        tg, te = parts(tip)
+        if tip not in TIP_PARTS:
+            TIP_PARTS[tip] = parts(tip)
+        tg, te = TIP_PARTS[tip]
         dg, de = edit_distance(wg, tg), edit_distance(we, te)
         if dg > allowed_edits(len(wg), options) + extra:
             continue

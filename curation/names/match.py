@@ -584,9 +584,11 @@ def match_findings(result: pd.DataFrame, tips: list[str] | pd.Series) -> list[Fi
     """
     findings: list[Finding] = []
     accepted = result[result["status"] == "accepted"]
+    # Group only the tips reached more than once: grouping is the slow part.
+    accepted = accepted[accepted.duplicated("tip_label", keep=False)]
     shared = accepted.groupby("tip_label")["written_name"].agg(list)
     stages = accepted.set_index("written_name")["stage"]
-    for tip, written in shared[shared.map(len) > 1].items():
+    for tip, written in shared.items():
         findings.append(
             Finding(
                 code="names.shared_tip",
@@ -617,9 +619,9 @@ def match_findings(result: pd.DataFrame, tips: list[str] | pd.Series) -> list[Fi
             )
         )
     tparsed = parse_names(pd.Series(pd.unique(pd.Series(list(tips), dtype=object))).astype(str))
-    tparsed = tparsed[tparsed["canonical"] != ""]
+    tparsed = tparsed[(tparsed["canonical"] != "") & tparsed.duplicated("canonical", keep=False)]
     groups = tparsed.groupby("canonical")["written"].agg(list)
-    for canonical, labels in groups[groups.map(len) > 1].items():
+    for canonical, labels in groups.items():
         findings.append(
             Finding(
                 code="names.tip_collision",
