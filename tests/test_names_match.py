@@ -280,3 +280,31 @@ def test_fuzzy_blocking_finds_what_a_double_loop_finds() -> None:
         expected = _brute_force_fuzzy(row.written_name, tips, options)
         got = [(t, s) for t, s in row.candidates]
         assert got == expected[: options.candidates], row.written_name
+
+
+def test_hybrids_and_infraspecific_names_wait_for_review() -> None:
+    tips = ["Aus_bus", "Aus_xcus", "Dus_eus_subsp._fus"]
+    result = match_names(["Aus × bus", "Aus bus subsp. gus", "Dus eus ssp. fus"], tips)
+    # A hybrid is not its parent species: the spelling stage may find Aus_bus
+    # but must not accept it.
+    hybrid = _row(result, "Aus × bus")
+    assert hybrid["status"] == "pending" and hybrid["tip_label"] == "Aus_bus"
+    infra = _row(result, "Aus bus subsp. gus")
+    assert (infra["stage"], infra["status"], infra["tip_label"]) == (
+        "canonical",
+        "pending",
+        "Aus_bus",
+    )
+    assert "infraspecific" in infra["reason"]
+    assert _row(result, "Dus eus ssp. fus")["status"] == "accepted"
+
+
+def test_tip_labels_that_are_not_names() -> None:
+    tips = ["t1", "'quoted label'", "123", "Aus_bus"]
+    result = match_names(["Aus bus", "t1", "quoted label"], tips)
+    assert _row(result, "Aus bus")["tip_label"] == "Aus_bus"
+    assert _row(result, "t1")["stage"] == "exact"
+    # Quotes, case and underscores aside, the text is the same.
+    quoted = _row(result, "quoted label")
+    assert (quoted["stage"], quoted["tip_label"]) == ("canonical", "'quoted label'")
+    assert match_names(["t2"], tips)["stage"].iloc[0] == "unparseable"

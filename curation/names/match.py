@@ -413,11 +413,13 @@ def match_names(
     )
     uncertain = parsed["qualifiers"].map(lambda q: bool(UNCERTAIN.intersection(q))).to_numpy()
     placed_all = parsed["leftovers"].map(len).to_numpy() == 0
+    hybrid = parsed["hybrid"].to_numpy(dtype=bool)
     open_ = np.ones(n, dtype=bool)
 
-    def settle(stage: str, pairs: pd.DataFrame, fixed_score: float | None = None) -> None:
+    def settle(stage: str, pairs: pd.DataFrame, hold: str = "") -> None:
         """Record the ranked ``pairs`` (w, tip, score[, auto]) of ``stage``
-        for still-open names; accept those with one clear best tip."""
+        for still-open names; accept those with one clear best tip, unless
+        ``hold`` gives a reason to leave them all for review."""
         nonlocal open_
         if pairs.empty:
             return
@@ -443,6 +445,8 @@ def match_names(
             & ~uncertain[idx]
             & placed_all[idx]
             & (stage != "genus")
+            & ~(hybrid[idx] & (stage not in ("exact", "canonical")))
+            & (not hold)
         )
         reason = np.full(len(idx), "", dtype=object)
         reason[~good.to_numpy()] = "score below the automatic threshold"
@@ -451,8 +455,12 @@ def match_names(
         reason[tied.to_numpy()] = "several tips equally good"
         reason[~placed_all[idx]] = "the name has words the parser could not place"
         reason[uncertain[idx]] = "the name carries an uncertain qualifier"
+        if stage not in ("exact", "canonical"):
+            reason[hybrid[idx]] = "a hybrid name is matched only by its exact or canonical form"
         if stage == "genus":
             reason[:] = "only the genus matched"
+        if hold:
+            reason[:] = hold
         reason[accept] = ""
         for column in ["tip_label", "score", "runner_up", "runner_up_score", "margin"]:
             result.loc[idx, column] = ranked[column].to_numpy()
@@ -479,6 +487,14 @@ def match_names(
     settle("exact", exact)
     # 2. canonical
     settle("canonical", by_key(parsed["canonical"], tparsed["canonical"], 100.0))
+    # A subspecies, variety or form whose species is a tip: for review only.
+    has_infra = parsed["infraspecific"].notna() & ~parsed["hybrid"]
+    species = (parsed["genus"].fillna("") + " " + parsed["epithet"].fillna("")).where(has_infra, "")
+    settle(
+        "canonical",
+        by_key(species, tparsed["canonical"], 90.0),
+        hold="an infraspecific name whose species is a tip",
+    )
     # 3. synonym, both directions
     syn = _synonym_pairs(synonyms)
     if not syn.empty:
@@ -560,7 +576,7 @@ def match_names(
         pairs = left.merge(right, on="g")
         settle("genus", pairs.assign(score=50.0)[["w", "tip", "score"]])
 
-    unparsed = ~parsed["parseable"].to_numpy()
+    unparsed = ~parsed["parseable"].to_numpy() & open_
     result.loc[unparsed, "reason"] = "could not parse: " + parsed.loc[unparsed, "reason"]
     result.loc[unparsed, "stage"] = "unparseable"
     left_open = open_ & ~unparsed
