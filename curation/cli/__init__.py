@@ -11,6 +11,7 @@ import sys
 from curation.cli import (  # noqa: F401  (each module registers its commands)
     demo_commands,
     import_commands,
+    names_commands,
     store_commands,
     trait_import_commands,
 )
