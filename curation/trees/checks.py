@@ -449,7 +449,7 @@ def check_tree(
                 )
             )
     findings.extend(_label_findings(tree))
-    if matrix:
+    if matrix and lengths_usable:
         from curation.trees.matrix import check_covariance
 
         findings.extend(check_covariance(tree, memory_limit_bytes=memory_limit_bytes))
