@@ -34,19 +34,29 @@ import re
 from typing import Any
 
 import numpy as np
+import pandas as pd
+from pydantic import BaseModel
+from sqlalchemy import select
 
 from curation.errors import InputError
-from curation.findings import Finding, Severity
+from curation.findings import Finding, Severity, findings_frame
+from curation.store.engine import Store
+from curation.store.ledger import record_event, record_findings
+from curation.store.models import LedgerEvent, StoredFinding, Tree
 from curation.trees.arrays import TreeArrays, path_sums
 from curation.trees.nodes import NodeNames, name_nodes
+from curation.trees.stored import get_tree_set, load_tree, load_tree_set
 
 __all__ = [
     "DEFAULT_OUTLIER_THRESHOLD",
     "DEFAULT_TOLERANCE",
     "FINDING_PHRASES",
+    "TreeCheckReport",
     "UltrametricReport",
     "check_tree",
+    "check_trees",
     "measure_ultrametricity",
+    "tree_findings",
     "validate_check_options",
 ]
 
@@ -74,7 +84,7 @@ FINDING_PHRASES: dict[str, str] = {
     "tree.empty_label": "have tips without labels",
     "tree.label_needs_quotes": "have labels that need quoting",
     "tree.branch_length_outlier": "have extreme branch-length outliers",
-    "tree.covariance_not_positive_definite": "have a covariance matrix that is not positive definite",
+    "tree.covariance_not_positive_definite": "have a singular covariance matrix",
 }
 
 # Characters that change a label's meaning in unquoted Newick (blanks,
@@ -156,7 +166,7 @@ def measure_ultrametricity(tree: TreeArrays, depths: np.ndarray | None = None) -
     spread = height - low
     relative = spread / height if height > 0 else 0.0
     report: UltrametricReport = dict(
-        tips=int(len(tips)),
+        tips=len(tips),
         height=height,
         spread=spread,
         relative_spread=relative,
@@ -169,7 +179,9 @@ def measure_ultrametricity(tree: TreeArrays, depths: np.ndarray | None = None) -
     allowance = path_sums(tree.parent, _written_half_units(tree))[tips]
     # A little slack for the float arithmetic of summing the lengths.
     slack = 8 * np.finfo(float).eps * max(height, 1.0) * max(1, int(np.log2(len(depths) + 1)))
-    consistent = float(np.max(tip_depths - allowance)) <= float(np.min(tip_depths + allowance)) + slack
+    consistent = (
+        float(np.max(tip_depths - allowance)) <= float(np.min(tip_depths + allowance)) + slack
+    )
     report.update(
         rounding_allowance=float(allowance.max()),
         verdict="rounding-level" if consistent else "substantive",
@@ -218,7 +230,7 @@ def _length_findings(tree: TreeArrays, names: NodeNames, threshold: float) -> li
                 subject="tree",
                 message=f"{len(where)} of {n - 1} branches have no length",
                 details={
-                    "missing": int(len(where)),
+                    "missing": len(where),
                     "branches": n - 1,
                     "first_missing": names.subjects(where[:20]),
                 },
@@ -454,3 +466,230 @@ def check_tree(
 
         findings.extend(check_covariance(tree, memory_limit_bytes=memory_limit_bytes))
     return findings
+
+
+class TreeCheckReport(BaseModel):
+    """What :func:`check_trees` found and stored.
+
+    Attributes:
+        tree_set_id: the set checked.
+        tree_ids: the trees checked, in file order.
+        event_id: the ledger event the findings are stored under.
+        counts: for each finding code, how many trees show it.
+        sentences: the counts for a person: "37 of 100 trees have polytomies".
+        findings: the stored findings: one per code and subject, its details
+            saying in how many trees (and which, by index in the file) it
+            appears; plus, for a set, tips not shared by all trees and one
+            ``tree.frequency`` finding per code.
+    """
+
+    tree_set_id: int
+    tree_ids: list[int]
+    event_id: int
+    counts: dict[str, int]
+    sentences: list[str]
+    findings: list[Finding]
+
+    def frame(self) -> pd.DataFrame:
+        """Return the findings as a DataFrame (see :func:`curation.findings.findings_frame`)."""
+        return findings_frame(self.findings)
+
+
+def _set_findings(
+    per_tree: list[tuple[Tree, TreeArrays, list[Finding]]],
+) -> tuple[list[Finding], dict[str, int], list[str]]:
+    total = len(per_tree)
+    grouped: dict[tuple[str, str], tuple[Finding, list[int]]] = {}
+    counts: dict[str, int] = {}
+    for tree, _arrays, findings in per_tree:
+        seen: set[str] = set()
+        for finding in findings:
+            key = (finding.code, finding.subject)
+            if key in grouped:
+                grouped[key][1].append(tree.index_in_file)
+            else:
+                grouped[key] = (finding, [tree.index_in_file])
+            seen.add(finding.code)
+        for code in seen:
+            counts[code] = counts.get(code, 0) + 1
+    out: list[Finding] = []
+    for (_code, _subject), (finding, indices) in grouped.items():
+        if total == 1:
+            details = {**finding.details, "tree_id": per_tree[0][0].id}
+            out.append(finding.model_copy(update={"details": details}))
+            continue
+        details = {
+            **finding.details,
+            "trees_with": len(indices),
+            "trees": total,
+            "tree_indices": indices[:100],
+        }
+        message = f"{finding.message} (in {len(indices)} of {total} trees)"
+        out.append(finding.model_copy(update={"details": details, "message": message}))
+    sentences = [
+        f"{counts[code]} of {total} trees {FINDING_PHRASES.get(code, 'show ' + code)}"
+        for code in sorted(counts)
+    ]
+    if total > 1:
+        tip_sets = [set(arrays.tip_labels) for _tree, arrays, _f in per_tree]
+        everywhere = set.intersection(*tip_sets)
+        union = set.union(*tip_sets)
+        for label in sorted(union - everywhere):
+            having = sum(label in tips for tips in tip_sets)
+            out.append(
+                Finding(
+                    code="tree.tip_not_in_all_trees",
+                    severity=Severity.warning,
+                    subject=f"tip {label!r}",
+                    message=f"the tip {label!r} is in {having} of the {total} trees",
+                    details={"label": label, "trees_with": having, "trees": total},
+                )
+            )
+        if union != everywhere:
+            counts["tree.tip_not_in_all_trees"] = sum(1 for tips in tip_sets if tips != union)
+            sentences.append(f"{len(union - everywhere)} tips are not in all {total} trees")
+        for code in sorted(c for c in counts if c in FINDING_PHRASES):
+            out.append(
+                Finding(
+                    code="tree.frequency",
+                    severity=Severity.info,
+                    subject=code,
+                    message=f"{counts[code]} of {total} trees {FINDING_PHRASES[code]}",
+                    details={"code": code, "trees_with": counts[code], "trees": total},
+                )
+            )
+    return out, counts, sentences
+
+
+def check_trees(
+    store: Store,
+    tree_set_id: int | None = None,
+    *,
+    tree_id: int | None = None,
+    tolerance: float = DEFAULT_TOLERANCE,
+    outlier_threshold: float = DEFAULT_OUTLIER_THRESHOLD,
+    expect_rooted: bool | None = None,
+    matrix: bool = False,
+    memory_limit_bytes: int | None = None,
+    who: str | None = None,
+) -> TreeCheckReport:
+    """Check every tree of a stored tree set (or one tree) and store the
+    findings under one ledger event ``check_trees``.
+
+    Options are those of :func:`check_tree`.
+
+    Returns:
+        :class:`TreeCheckReport`.
+
+    Raises:
+        NotFoundError: no such tree set or tree (nothing is stored).
+        InputError: a negative tolerance, a non-positive outlier threshold,
+            neither or both of ``tree_set_id`` and ``tree_id``; with
+            ``matrix``, a matrix above the memory limit (nothing is stored).
+    """
+    validate_check_options(tolerance, outlier_threshold)
+    if (tree_set_id is None) == (tree_id is None):
+        raise InputError(
+            "give either a tree set or one tree to check",
+            field="tree set",
+            hint="name a tree set (e.g. `check-trees 1`) or one tree with --tree",
+        )
+    with store.transaction() as session:
+        if tree_id is not None:
+            tree, arrays = load_tree(session, tree_id)
+            loaded = [(tree, arrays)]
+            set_id = tree.tree_set_id
+            subject = f"tree {tree_id}"
+        else:
+            assert tree_set_id is not None
+            loaded = load_tree_set(session, tree_set_id)
+            set_id = tree_set_id
+            subject = f"tree set {tree_set_id}"
+        per_tree = [
+            (
+                tree,
+                arrays,
+                check_tree(
+                    arrays,
+                    tolerance=tolerance,
+                    outlier_threshold=outlier_threshold,
+                    expect_rooted=expect_rooted if expect_rooted is not None else tree.rooted,
+                    matrix=matrix,
+                    memory_limit_bytes=memory_limit_bytes,
+                ),
+            )
+            for tree, arrays in loaded
+        ]
+        findings, counts, sentences = _set_findings(per_tree)
+        summary = f"checked {len(loaded)} trees" + (
+            ": " + "; ".join(sentences) if sentences else ": no findings"
+        )
+        event = record_event(
+            session,
+            "check_trees",
+            subject=subject,
+            summary=summary,
+            parameters={
+                "tree_set_id": set_id,
+                "tree_id": tree_id,
+                "tolerance": tolerance,
+                "outlier_threshold": outlier_threshold,
+                "expect_rooted": expect_rooted,
+                "matrix": matrix,
+                "memory_limit_bytes": memory_limit_bytes,
+                "trees": len(loaded),
+                "counts": counts,
+            },
+            who=who,
+        )
+        record_findings(session, event, findings)
+        return TreeCheckReport(
+            tree_set_id=set_id,
+            tree_ids=[tree.id for tree, _ in loaded],
+            event_id=event.id,
+            counts=counts,
+            sentences=sentences,
+            findings=findings,
+        )
+
+
+def tree_findings(
+    store: Store, tree_set_id: int | None = None, *, tree_id: int | None = None
+) -> pd.DataFrame:
+    """Return the findings of the latest ``check_trees`` of a tree set (or
+    of one tree) as a DataFrame (code, severity, subject, message, details),
+    sorted by code and subject; empty when it was never checked.
+
+    Raises:
+        NotFoundError: no such tree set or tree.
+    """
+    with store.reading() as session:
+        if tree_id is not None:
+            load_tree(session, tree_id)
+            subject = f"tree {tree_id}"
+        else:
+            if tree_set_id is None:
+                raise InputError("give a tree set or one tree with --tree", field="tree set")
+            get_tree_set(session, tree_set_id)
+            subject = f"tree set {tree_set_id}"
+        event_id = session.scalar(
+            select(LedgerEvent.id)
+            .where(LedgerEvent.action == "check_trees", LedgerEvent.subject == subject)
+            .order_by(LedgerEvent.id.desc())
+            .limit(1)
+        )
+        if event_id is None:
+            return findings_frame([])
+        rows = session.scalars(select(StoredFinding).where(StoredFinding.event_id == event_id))
+        return findings_frame(
+            [
+                Finding(
+                    code=r.code,
+                    severity=Severity(r.severity),
+                    subject=r.subject,
+                    message=r.message,
+                    details=r.details or {},
+                )
+                for r in rows
+            ]
+        )

@@ -135,7 +135,9 @@ def pruned(tree: TreeArrays, tips: list[str] | set[str]) -> TreeArrays:
         raise InputError(
             f"{len(unknown)} of the tips to keep are not in the tree",
             field="tips",
-            problems=[Problem(f"{label!r} is not a tip of the tree", value=label) for label in unknown],
+            problems=[
+                Problem(f"{label!r} is not a tip of the tree", value=label) for label in unknown
+            ],
             hint="check the spelling against the tree's tip labels",
         )
     names = name_nodes(tree)
@@ -144,9 +146,11 @@ def pruned(tree: TreeArrays, tips: list[str] | set[str]) -> TreeArrays:
     before = np.concatenate([[0], np.cumsum(kept_tip)])
     below = before[names.tip_start + names.tip_count] - before[names.tip_start]
     retained = below > 0
-    retained_children = np.bincount(
-        tree.parent[1:][retained[1:]], minlength=tree.node_count
-    ) if tree.node_count > 1 else np.zeros(1, dtype=np.int64)
+    retained_children = (
+        np.bincount(tree.parent[1:][retained[1:]], minlength=tree.node_count)
+        if tree.node_count > 1
+        else np.zeros(1, dtype=np.int64)
+    )
     unary = retained & ~is_tip & (retained_children == 1)
     remove = ~retained | unary
     root_removed = bool(remove[0])

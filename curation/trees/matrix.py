@@ -106,9 +106,7 @@ def covariance_matrix(
     return [tree.labels[t] for t in tips], matrix
 
 
-def covariance_report(
-    tree: TreeArrays, *, memory_limit_bytes: int | None = None
-) -> dict[str, Any]:
+def covariance_report(tree: TreeArrays, *, memory_limit_bytes: int | None = None) -> dict[str, Any]:
     """Check the covariance matrix of ``tree`` for the properties inverse-
     based methods need.
 
