@@ -93,7 +93,7 @@ FINDING_PHRASES: dict[str, str] = {
 _QUOTE_NEEDED = re.compile(r"[\s(),:;'\[\]_]")
 
 
-_MINIMUM_LOG_MAD = 0.1
+_MINIMUM_LOG_MAD = 0.2
 
 
 def validate_check_options(tolerance: float, outlier_threshold: float) -> None:
@@ -287,8 +287,8 @@ def _outlier_findings(tree: TreeArrays, names: NodeNames, threshold: float) -> l
     logs = np.log10(lengths[usable])
     median = float(np.median(logs))
     # A floor on the spread: when most lengths are equal (MAD 0) any other
-    # length would otherwise be "extreme"; 0.1 in log10 units means a
-    # branch must be over 3 times the median before 3.5 can be exceeded.
+    # length would otherwise be "extreme"; 0.2 in log10 units means a
+    # branch must be over 10 times the median before 3.5 can be exceeded.
     mad = max(float(np.median(np.abs(logs - median))), _MINIMUM_LOG_MAD)
     z = 0.6745 * (logs - median) / mad
     typical = 10**median
