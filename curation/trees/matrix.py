@@ -186,7 +186,8 @@ def check_covariance(tree: TreeArrays, *, memory_limit_bytes: int | None = None)
                 code="tree.covariance_not_positive_definite",
                 severity=Severity.error,
                 subject="tree",
-                message="the covariance matrix is not positive definite (Cholesky fails)"
+                message="the covariance matrix is not positive definite (an eigenvalue is "
+                "numerically zero or below, or Cholesky fails)"
                 + (f"; tips that make it singular: {shown}" if tips else ""),
                 details=_json_safe(report),
             )
