@@ -14,6 +14,7 @@ from curation.cli import (  # noqa: F401  (each module registers its commands)
     names_commands,
     store_commands,
     trait_import_commands,
+    tree_commands,
 )
 from curation.cli.app import app, console
 from curation.errors import TipledgerError
