@@ -1,0 +1,1 @@
+"""Phylogenetic readiness diagnostics per trait, in linear time."""
