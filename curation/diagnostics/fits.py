@@ -33,6 +33,7 @@ __all__ = [
     "fit_brownian",
     "fit_lambda",
     "lambda_loglik",
+    "brownian_loglik",
 ]
 
 _LOG_2PI = math.log(2 * math.pi)
@@ -72,10 +73,12 @@ def _ml_no_error(n: int, rss: float, log_det: float) -> tuple[float, float]:
     return -0.5 * (n * (_LOG_2PI + math.log(rate)) + log_det + n), rate
 
 
-def _with_error(
-    tree: PreparedTree, y: np.ndarray, se2: np.ndarray, lam: float, rate: float
+def brownian_loglik(
+    tree: PreparedTree, y: np.ndarray, se2: np.ndarray | None, lam: float, rate: float
 ) -> tuple[float, float, BrownianPass, float]:
-    """(ML loglik, REML loglik, pass, GLS mean) at one rate with known SE."""
+    """Return (ML log-likelihood at the GLS mean, REML log-likelihood, the
+    pass, the GLS mean) at one rate and lambda, with species' squared SEs
+    ``se2`` (or none) added to the terminal branches."""
     n = len(y)
     bp = BrownianPass(tree, edge_variances(tree, lam=lam, rate=rate, tip_variance=se2))
     mean, rss = bp.solve(y)
@@ -94,7 +97,7 @@ def _best_rate(
     centre = math.log(max(start, 1e-300))
 
     def negative(log_rate: float) -> float:
-        return -_with_error(tree, y, se2, lam, math.exp(log_rate))[which]
+        return -brownian_loglik(tree, y, se2, lam, math.exp(log_rate))[which]
 
     result = minimize_scalar(
         negative, bounds=(centre - 25.0, centre + 5.0), method="bounded", options={"xatol": 1e-7}
@@ -139,7 +142,7 @@ def fit_brownian(tree: PreparedTree, y: np.ndarray, *, se: np.ndarray | None = N
     se2 = np.asarray(se, dtype=np.float64) ** 2
     rate_ml, loglik_ml = _best_rate(tree, y, se2, 1.0, rate_ml, 0)
     rate_reml, loglik_reml = _best_rate(tree, y, se2, 1.0, rate_reml, 1)
-    _, _, bp_e, mean_e = _with_error(tree, y, se2, 1.0, rate_reml)
+    _, _, bp_e, mean_e = brownian_loglik(tree, y, se2, 1.0, rate_reml)
     return BrownianFit(
         tips=n,
         mean=mean_e,

@@ -90,5 +90,5 @@ def blomberg_k(
 
 
 def _ratio(total: float, mean: np.ndarray, rss: np.ndarray, n: int) -> np.ndarray:
-    # sum (y - a)^2 = sum y^2 - n a^2 for centred y (sum y = 0).
-    return (total - n * mean**2) / rss
+    # sum (y - a)^2 = sum y^2 - 2 a sum y + n a^2 = sum y^2 + n a^2 for centred y.
+    return (total + n * mean**2) / rss
