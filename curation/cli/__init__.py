@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import sys
 
-from curation.cli import demo_commands, store_commands  # noqa: F401  (registers commands)
+from curation.cli import demo_commands, diagnostics_commands, store_commands  # noqa: F401
 from curation.cli.app import app, console
 from curation.errors import TipledgerError
 

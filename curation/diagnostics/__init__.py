@@ -16,6 +16,7 @@ from curation.diagnostics.diagnose import (
     MeasurementErrorDiagnostics,
     TraitDiagnostics,
     diagnose_traits,
+    diagnostics_frame,
     trait_diagnostics,
 )
 from curation.diagnostics.fits import BrownianFit, LambdaFit, fit_brownian, fit_lambda
@@ -35,6 +36,7 @@ __all__ = [
     "blomberg_k",
     "check_branch_lengths",
     "diagnose_traits",
+    "diagnostics_frame",
     "edge_variances",
     "fit_brownian",
     "fit_lambda",

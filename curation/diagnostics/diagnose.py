@@ -47,6 +47,7 @@ __all__ = [
     "MeasurementErrorDiagnostics",
     "TraitDiagnostics",
     "diagnose_traits",
+    "diagnostics_frame",
     "trait_diagnostics",
     "DISCRETE_KINDS",
 ]
@@ -479,3 +480,38 @@ def diagnose_traits(
                 )
             )
     return results
+
+
+def diagnostics_frame(results: list[TraitDiagnostics]) -> pd.DataFrame:
+    """Return one row per trait with the headline figures (rounded for
+    reading; the models hold full precision), for tables and reports."""
+
+    def r(value: float | None, digits: int = 4) -> float | None:
+        return None if value is None else float(f"{value:.{digits}g}")
+
+    rows = []
+    for d in results:
+        lam, k, a = d.pagel_lambda, d.blomberg, d.adequacy
+        rows.append(
+            {
+                "trait": d.trait,
+                "status": d.status,
+                "species": d.tips_used,
+                "pruned": d.tips_pruned,
+                "mean": r(d.ordinary_mean),
+                "naive_se": r(d.ordinary_se),
+                "phylo_mean": r(d.phylogenetic_mean),
+                "phylo_se": r(d.phylogenetic_se),
+                "rate_reml": r(d.rate_reml),
+                "lambda": None if lam is None else round(lam.lam, 3),
+                "p_lambda_0": None if lam is None else r(lam.p_vs_0, 2),
+                "p_lambda_1": None if lam is None else r(lam.p_vs_1, 2),
+                "K": None if k is None else round(k.k, 3),
+                "p_K": None if k is None else k.p_value,
+                "contrast_r": None
+                if a is None or a.correlation is None
+                else round(a.correlation, 3),
+                "p_contrast": None if a is None or a.p_value is None else r(a.p_value, 2),
+            }
+        )
+    return pd.DataFrame(rows)
