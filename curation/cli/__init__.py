@@ -10,6 +10,7 @@ import sys
 
 from curation.cli import (  # noqa: F401  (each module registers its commands)
     demo_commands,
+    diagnostics_commands,
     import_commands,
     names_commands,
     store_commands,
