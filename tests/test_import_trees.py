@@ -471,15 +471,18 @@ def test_nexus_tree_tip_missing_from_the_taxa_block(store: Store, tmp_path: Path
 def test_nexus_problems_in_blocks_are_all_reported(tmp_path: Path) -> None:
     text = (
         "#NEXUS\nbegin taxa; dimensions ntax=4; taxlabels A B C; end;\n"
-        "begin trees;\n translate 1 A, 2 B, 2 C;\n tree one = ((1:1,2:1):0.5,9:1.5);\nend;\n"
+        "begin trees;\n translate 1 A, 2 B, 2 C;\n tree one = ((1:1,2:x):0.5,9:1.5);\nend;\n"
     )
     with pytest.raises(FormatError) as info:
         read_tree_file(write(tmp_path, "three.nex", text))
     messages = [p.message for p in info.value.problems]
-    assert len(messages) == 3
+    assert len(messages) == 4
     assert "NTAX=4 but TAXLABELS lists 3 names" in messages[0]
     assert "TRANSLATE token '2' is given twice" in messages[1]
     assert "tip '9'" in messages[2]
+    # The bad length, placed in the file as written (before renaming).
+    assert "'x' is not a number" in messages[3]
+    assert (info.value.problems[3].line, info.value.problems[3].column) == (5, 21)
 
 
 def test_nexus_rooting_written_before_the_equals_sign(store: Store, tmp_path: Path) -> None:
