@@ -175,18 +175,18 @@ def run() -> list[dict]:
             {
                 "benchmark": "names: quality",
                 "measure": f"{row.stage}: precision of {row.accepted} automatic",
-                "value": row.precision,
-                "unit": "",
-                "target": ">= 0.995" if overall else "",
+                "value": 100 * row.precision,
+                "unit": "%",
+                "target": ">= 99.5 %" if overall else "",
             }
         )
         rows.append(
             {
                 "benchmark": "names: quality",
                 "measure": f"{row.stage}: recall (first) over {row.names} names",
-                "value": row.recall,
-                "unit": "",
-                "target": ">= 0.98" if overall else "",
+                "value": 100 * row.recall,
+                "unit": "%",
+                "target": ">= 98 %" if overall else "",
             }
         )
         if overall:
@@ -194,8 +194,8 @@ def run() -> list[dict]:
                 {
                     "benchmark": "names: quality",
                     "measure": "all: true tip among the candidates",
-                    "value": row.among_candidates,
-                    "unit": "",
+                    "value": 100 * row.among_candidates,
+                    "unit": "%",
                     "target": "",
                 }
             )
