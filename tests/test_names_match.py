@@ -243,9 +243,8 @@ def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> 
     """Every tip scored against ``written`` in a plain double loop, with the
     matcher's documented rule: genus and epithet compared folded, each OSA
     distance within its limit plus the review allowance, score = 100 * (1 -
-    edits / letters), kept from ``review_score``; when no candidate is
-    within the automatic limits and score, the letters as written are
-    scored too and each tip keeps its better score."""
+    edits / letters), kept from ``review_score``; the letters as written
+    are scored too and each tip keeps its better score."""
     from curation.names.parse import parse_name
 
     def parts(name: str, fold: bool) -> tuple[str, str]:
@@ -275,10 +274,9 @@ def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> 
         return out
 
     found = scores(True)
-    if not any(auto and s >= options.accept_score for s, auto in found.values()):
-        for tip, value in scores(False).items():
-            if tip not in found or value[0] > found[tip][0]:
-                found[tip] = value
+    for tip, value in scores(False).items():
+        if tip not in found or value[0] > found[tip][0]:
+            found[tip] = value
     return sorted(((t, s) for t, (s, _) in found.items()), key=lambda x: (-x[1], x[0]))
 
 
@@ -321,3 +319,13 @@ def test_tip_labels_that_are_not_names() -> None:
     quoted = _row(result, "quoted label")
     assert (quoted["stage"], quoted["tip_label"]) == ("canonical", "'quoted label'")
     assert match_names(["t2"], tips)["stage"].iloc[0] == "unparseable"
+
+
+def test_folding_does_not_hide_the_closer_name_as_written() -> None:
+    # "zyrvvuus" folds to "zirvus", one edit from "tirvus"; as written it is
+    # one transposition from "zyrvuvus". The closer-as-written tip must not
+    # lose to the folded neighbour.
+    tips = ["Dolyaxis_zyrvuvus", "Dolyaxis_tirvus"]
+    row = _row(match_names(["Dolyaxis zyrvvuus"], tips), "Dolyaxis zyrvvuus")
+    assert row["tip_label"] == "Dolyaxis_zyrvuvus" or row["status"] == "pending"
+    assert "Dolyaxis_zyrvuvus" in [c[0] for c in row["candidates"]]

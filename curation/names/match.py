@@ -15,9 +15,9 @@ Stages, in order; the first that decides a name wins:
    ae/e, oe/e, y/i, k/c, doubled letters, -ii/-i).
 6. ``fuzzy``: genus and epithet scored separately by optimal string
    alignment distance (a transposition is one edit), on the folded
-   spellings (and, for names that found no automatic match so, on the
-   letters as written), within edit limits that grow with length; genus
-   may be fuzzy too. Candidates come from blocks (genera close to the written genus,
+   spellings and on the letters as written (each pair keeps its better
+   score), within edit limits that grow with length; genus may be fuzzy
+   too. Candidates come from blocks (genera close to the written genus,
    within a length window), never from all pairs.
 7. ``genus``: only the genus matched; candidates are that genus's tips.
    Never accepted automatically.
@@ -580,22 +580,17 @@ def match_names(
         tips_f = tf.reset_index(drop=True)
         tip_labels = tparsed.loc[tf.index, "tip"].to_numpy()
         scored = _fuzzy(wf.iloc[fuzzy_rows].reset_index(drop=True), tips_f, opts)
-        # Folding can make a typo cost more ("pdhana" folds to "pdhana" but
-        # "phana" to "fana"): names the folded pass left without an
-        # automatic candidate are scored again on their letters as written,
+        # Folding can make a typo cost more ("zyrvvuus" folds to "zirvus",
+        # one edit from "tirvus" but two from "zirvuvus", the name it was
+        # meant to be): every name is scored on its letters as written too,
         # and each pair keeps its better score.
-        sure = scored["auto"].astype(bool) & (scored["score"] >= opts.accept_score)
-        retry = np.setdiff1d(np.arange(len(fuzzy_rows)), scored.loc[sure, "w"].to_numpy())
-        if len(retry):
-            wr = as_written(parsed).iloc[fuzzy_rows[retry]].reset_index(drop=True)
-            tips_r = as_written(tparsed).loc[tf.index].reset_index(drop=True)
-            raw = _fuzzy(wr, tips_r, opts)
-            raw["w"] = retry[raw["w"].to_numpy(dtype=np.int64)]
-            scored = (
-                pd.concat([scored, raw], ignore_index=True)
-                .sort_values(["w", "t", "score"], ascending=[True, True, False], kind="stable")
-                .drop_duplicates(["w", "t"])
-            )
+        wr = as_written(parsed).iloc[fuzzy_rows].reset_index(drop=True)
+        tips_r = as_written(tparsed).loc[tf.index].reset_index(drop=True)
+        scored = (
+            pd.concat([scored, _fuzzy(wr, tips_r, opts)], ignore_index=True)
+            .sort_values(["w", "t", "score"], ascending=[True, True, False], kind="stable")
+            .drop_duplicates(["w", "t"])
+        )
         if not scored.empty:
             scored = pd.DataFrame(
                 {
