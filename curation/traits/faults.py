@@ -78,7 +78,7 @@ SLIP_FACTORS = (10.0, 100.0, 1000.0, 25.4)
 class FaultOptions(BaseModel):
     """Thresholds of the fault rules (see the module notes)."""
 
-    outlier_threshold: float = 4.0
+    outlier_threshold: float = 5.0
     outlier_min_n: int = 5
     slip_tolerance: float = 0.08
     genus_threshold: float = 5.0
@@ -174,8 +174,10 @@ def find_faults(frame: pd.DataFrame, options: FaultOptions | None = None) -> pd.
         excluded |= out[kind].to_numpy()
     kept = clean & ~excluded
     out["far_from_genus"] = _far_from_genus(frame, logs.where(kept), options)
+    # Sources are compared before the within-species rules: a source that
+    # wrote a whole species in another unit is a conflict, not a slip.
     out["source_conflict"] = _source_conflicts(
-        frame, pd.Series(value, index=frame.index).where(kept), options
+        frame, pd.Series(value, index=frame.index).where(clean), options
     )
     return out
 
