@@ -172,7 +172,8 @@ def prepare_frame(
     frame["number_ok"] = (frame["status"] == "ok") & frame["value_number"].notna()
     tip = frame["tip_label"]
     frame["group"] = tip.where(tip.notna(), "name:" + frame["written_name"].astype(str))
-    frame["genus"] = frame["group"].str.split(r"[_ ]", n=1, regex=True).str[0]
+    frame["group"] = frame["group"].astype(object)
+    frame["genus"] = frame["group"].astype("string").str.split(r"[_ ]", n=1, regex=True).str[0]
     flags = find_faults(frame, options)
     frame = frame.join(flags)
     named = frame["specimen_id"].notna() & frame["institution"].notna()
