@@ -15,6 +15,7 @@ from curation.cli import (  # noqa: F401  (each module registers its commands)
     import_commands,
     names_commands,
     store_commands,
+    trait_commands,
     trait_import_commands,
     tree_commands,
 )
