@@ -28,10 +28,9 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent))
 
-from names_corpus import make_tips, make_written  # noqa: E402
+from names_corpus import demo_decisions, make_tips, make_written  # noqa: E402
 
 from curation.demo.benchmark_data import generate_names  # noqa: E402
-from curation.demo.pipeline import run_demo  # noqa: E402
 from curation.names.decisions import candidates_of  # noqa: E402
 from curation.names.match import (  # noqa: E402
     MatchOptions,
@@ -41,7 +40,6 @@ from curation.names.match import (  # noqa: E402
     match_names,
 )
 from curation.names.parse import parse_name, parse_names  # noqa: E402
-from curation.store import current_decisions, ledger_frame, open_store  # noqa: E402
 
 N_TIPS = 50_000
 N_NAMES = 50_000
@@ -133,17 +131,12 @@ def quality(written: pd.DataFrame, result: pd.DataFrame) -> pd.DataFrame:
 
 
 def demo_coverage() -> dict[str, float]:
-    """Build the demo store (the demo pipeline reconciles its names) and
+    """Run the demo's steps up to the names stage on a new store and
     compare the decisions with the scenario's ground truth: false automatic
     acceptances, and names with a true tip that are neither accepted to it
     nor pending with it among their candidates."""
     with tempfile.TemporaryDirectory() as folder:
-        run_demo(folder)
-        truth = pd.read_csv(Path(folder) / "samples" / "truth" / "names.csv", keep_default_na=False)
-        with open_store(Path(folder) / "tipledger.db") as store, store.reading() as session:
-            events = ledger_frame(session, "reconcile-names")
-            tree_set = int(events["parameters"].iloc[-1]["tree_set_id"])
-            decided = current_decisions(session, tree_set)
+        truth, decided = demo_decisions(Path(folder))
     merged = truth.merge(decided, on="written_name", how="left")
     accepted = merged["status"] == "accepted"
     right = accepted & (merged["tip_label"] == merged["true_tip"])

@@ -5,6 +5,7 @@ name benchmarks. All names are invented syllable strings."""
 from __future__ import annotations
 
 import random
+from pathlib import Path
 
 import pandas as pd
 
@@ -126,3 +127,24 @@ def make_written(tips: list[str], n_names: int, seed: int = 2) -> pd.DataFrame:
             true = other
         rows.append({"written_name": name, "true_tip": true, "corruption": kind})
     return pd.DataFrame(rows)
+
+
+def demo_decisions(folder: Path) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Write the demo scenario into ``folder``, run the demo's steps up to
+    and including the names stage on a new store there, and return the
+    scenario's name truth and the decisions in force for the dated tree."""
+    from curation.demo.generator import generate_scenario
+    from curation.demo.pipeline import DEMO_STEPS, DemoContext
+    from curation.store import create_store, current_decisions
+
+    files = generate_scenario(folder / "samples")
+    with create_store(folder / "names.db") as store:
+        context = DemoContext(store, files, folder, 0)
+        for name, step in DEMO_STEPS:
+            step(context)
+            if name == "reconcile names":
+                break
+        with store.reading() as session:
+            decided = current_decisions(session, context.results["tree_set"])
+    truth = pd.read_csv(files.truth_names, keep_default_na=False)
+    return truth, decided

@@ -4,10 +4,10 @@ property that no text makes it raise or lose the name."""
 from __future__ import annotations
 
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from curation.names.parse import parse_name, parse_names
+from curation.names.parse import PARTICLES, QUALIFIERS, RANKS, parse_name, parse_names
 
 # (written, canonical, expected parts) -- the forms follow the usual way of
 # writing scientific names (binomial, rank abbreviations, authority in
@@ -123,3 +123,28 @@ def test_fast_path_gives_what_the_full_parser_gives(written: str) -> None:
     from curation.names.parse import _fast_row
 
     assert _fast_row(written) == parse_name(written).model_dump()
+
+
+GENUS = st.from_regex(r"[A-Z][a-z]{2,10}", fullmatch=True)
+EPITHET = st.from_regex(r"[a-z]{3,12}", fullmatch=True)
+
+
+@settings(max_examples=50, deadline=None)
+@given(GENUS, EPITHET, st.integers(1, 99999), st.sampled_from(["_", " ", "  "]))
+def test_written_forms_of_one_name_share_its_canonical_form(
+    genus: str, epithet: str, voucher: int, gap: str
+) -> None:
+    # The tip label, the sheet's spacing, capitals, an authority and quotes
+    # are all ways of writing the one binomial (common practice).
+    reserved = set(QUALIFIERS) | set(RANKS) | PARTICLES | {"nov", "x"}
+    assume(epithet not in reserved)  # a drawn epithet that is a qualifier or rank word
+    canonical = f"{genus} {epithet}"
+    forms = [
+        f"{genus}_{epithet}_V{voucher}",
+        f"{genus}{gap}{epithet}",
+        f"{genus.upper()} {epithet.upper()}",
+        f"{genus} {epithet} (Quen, 1888)",
+        f"'{genus} {epithet}'",
+    ]
+    for form in forms:
+        assert parse_name(form).canonical == canonical, form

@@ -276,3 +276,15 @@ def test_a_pending_name_is_matched_again_when_synonyms_arrive(store: Store) -> N
     history = decision_history(store, tree_set, "Old name")
     assert history["stage"].tolist() == ["unmatched", "synonym"]
     assert history["supersedes_id"].iloc[1] == first["decision_id"]
+
+
+def test_a_stale_sheet_is_refused(store: Store, tree_set: int, tmp_path: Path) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "review.csv"
+    export_review_sheet(store, tree_set, path)
+    decide_name(store, tree_set, "Ius jos", "Ius_jus", "accepted")  # decided since the export
+    _fill(path, {"Ius jos": ("accept", ""), "Cus dus": ("1", "")})
+    before = _counts(store)
+    with pytest.raises(InputError, match="'Ius jos' is not pending"):
+        import_review_sheet(store, tree_set, path)
+    assert _counts(store) == before
