@@ -165,6 +165,7 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
     decimals: list[int] = []
     labels: list[str] = []
     comments: dict[int, list[str]] = {}
+    pending: list[str] = []  # comments written before the node they belong to
     rooted: bool | None = None
     stack: list[int] = []
     current = -1  # the node that labels, lengths and comments attach to
@@ -182,7 +183,11 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
         lengths.append(np.nan)
         decimals.append(-1)
         labels.append("")
-        return len(parent) - 1
+        node = len(parent) - 1
+        if pending:
+            comments[node] = pending.copy()
+            pending.clear()
+        return node
 
     for match in _TOKEN.finditer(text):
         kind = match.lastgroup
@@ -207,6 +212,11 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
                 rooted = body.upper() == "&R"
             elif current >= 0:
                 comments.setdefault(current, []).append(value)
+            else:
+                # Before a node's label (or a tree's first '('): it belongs
+                # to the node that comes next, e.g. "([&x]A,B)" to A and a
+                # tree-header "[&lnP=-1] (A,B)" to the root.
+                pending.append(value)
             continue
         seen_any = True
         if expect_length:
