@@ -284,7 +284,7 @@ def test_check_trees_counts_trees_per_finding(store: Store) -> None:
     assert "2 of 3 trees have polytomies" in report.sentences
     polytomy = [f for f in report.findings if f.code == "tree.polytomy"]
     assert len(polytomy) == 1 and polytomy[0].details["tree_indices"] == [0, 2]
-    not_shared = sorted(f.subject for f in report.findings if f.code == "tree.tip_not_in_all_trees")
+    not_shared = sorted(f.subject for f in report.findings if f.code == "tree.tips_not_shared")
     assert not_shared == ["tip 'D'", "tip 'E'"]
     with store.reading() as session:
         events = session.scalars(

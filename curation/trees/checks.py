@@ -538,7 +538,7 @@ def _set_findings(
             having = sum(label in tips for tips in tip_sets)
             out.append(
                 Finding(
-                    code="tree.tip_not_in_all_trees",
+                    code="tree.tips_not_shared",
                     severity=Severity.warning,
                     subject=f"tip {label!r}",
                     message=f"the tip {label!r} is in {having} of the {total} trees",
@@ -546,7 +546,7 @@ def _set_findings(
                 )
             )
         if union != everywhere:
-            counts["tree.tip_not_in_all_trees"] = sum(1 for tips in tip_sets if tips != union)
+            counts["tree.tips_not_shared"] = sum(1 for tips in tip_sets if tips != union)
             sentences.append(f"{len(union - everywhere)} tips are not in all {total} trees")
         for code in sorted(c for c in counts if c in FINDING_PHRASES):
             out.append(
