@@ -63,8 +63,14 @@ def _on_scale(value: pd.Series, scale: pd.Series) -> pd.Series:
 
 
 def _ids(frame: pd.DataFrame, keys: list[str]) -> pd.Series:
-    ordered = frame.sort_values("id", kind="stable")
-    return ordered.groupby(keys, sort=True)["id"].agg(lambda s: [int(i) for i in s])
+    """The sorted measurement ids of each group, as lists, in key order."""
+    codes = frame.groupby(keys, sort=True).ngroup().to_numpy()
+    order = np.lexsort((frame["id"].to_numpy(), codes))
+    ids = frame["id"].to_numpy()[order].astype(np.int64)
+    bounds = np.flatnonzero(np.diff(codes[order])) + 1
+    lists = [part.tolist() for part in np.split(ids, bounds)] if len(ids) else []
+    index = frame.groupby(keys, sort=True).size().index
+    return pd.Series(lists, index=index, dtype=object)
 
 
 def _continuous(frame: pd.DataFrame, keys: list[str], policy: str) -> pd.DataFrame:
