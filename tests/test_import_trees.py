@@ -471,15 +471,18 @@ def test_nexus_tree_tip_missing_from_the_taxa_block(store: Store, tmp_path: Path
 def test_nexus_problems_in_blocks_are_all_reported(tmp_path: Path) -> None:
     text = (
         "#NEXUS\nbegin taxa; dimensions ntax=4; taxlabels A B C; end;\n"
-        "begin trees;\n translate 1 A, 2 B, 2 C;\n tree one = ((1:1,2:1):0.5,9:1.5);\nend;\n"
+        "begin trees;\n translate 1 A, 2 B, 2 C;\n tree one = ((1:1,2:x):0.5,9:1.5);\nend;\n"
     )
     with pytest.raises(FormatError) as info:
         read_tree_file(write(tmp_path, "three.nex", text))
     messages = [p.message for p in info.value.problems]
-    assert len(messages) == 3
+    assert len(messages) == 4
     assert "NTAX=4 but TAXLABELS lists 3 names" in messages[0]
     assert "TRANSLATE token '2' is given twice" in messages[1]
     assert "tip '9'" in messages[2]
+    # The bad length, placed in the file as written (before renaming).
+    assert "'x' is not a number" in messages[3]
+    assert (info.value.problems[3].line, info.value.problems[3].column) == (5, 21)
 
 
 def test_nexus_rooting_written_before_the_equals_sign(store: Store, tmp_path: Path) -> None:
@@ -635,6 +638,36 @@ def test_progress_is_reported_up_to_the_total(store: Store, tmp_path: Path) -> N
     import_trees(store, path, burn_in=4, keep_every=2, progress=lambda d, t: calls.append((d, t)))
     assert calls[-1] == (16, 16)  # 8 trees read, then 8 stored
     assert [d for d, _ in calls] == sorted(d for d, _ in calls)
+
+
+def test_duplicate_tips_and_differing_tip_sets_are_noted_not_refused(
+    store: Store, tmp_path: Path
+) -> None:
+    # A tip label twice in one tree is a finding for check-trees, not a crash
+    # (DendroPy refuses such a tree unless told to treat labels as plain node
+    # labels, as the reference below shows).
+    text = "((A:1,A:1):1,B:2);\n((A:1,C:1):1,B:2);\n"
+    path = write(tmp_path, "dupes.nwk", text)
+    result = import_trees(store, path)
+    assert result.counts["trees_stored"] == 2
+    assert any("more than once" in w for w in result.warnings)
+    assert any("do not all have the same tips" in w for w in result.warnings)
+    from dendropy.dataio.newickreader import NewickReader
+
+    with pytest.raises(NewickReader.NewickReaderDuplicateTaxonError):
+        dendropy.TreeList.get(path=str(path), schema="newick", preserve_underscores=True)
+
+
+def test_a_deep_caterpillar_tree_imports(store: Store, tmp_path: Path) -> None:
+    #  (((...(t0,t1),t2)...),t2999): 3,000 levels deep, no recursion limit hit.
+    tips = 3000
+    text = "(" * (tips - 1) + "t0:1" + "".join(f",t{i}:1):1" for i in range(1, tips)) + ";"
+    result = import_trees(store, write(tmp_path, "deep.nwk", text))
+    assert result.counts["tips"] == tips
+    (arrays,) = stored_arrays(store, result.tree_set_id)
+    assert arrays.tip_labels[-1] == f"t{tips - 1}"
+    # The deepest tips sit 2,999 branches below the root (each of length 1).
+    assert arrays.depths().max() == pytest.approx(tips - 1)
 
 
 # --- bad input: a clear message and an unchanged store ----------------------

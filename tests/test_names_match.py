@@ -236,37 +236,48 @@ def test_gallery_of_small_inputs(written: list[str], tips: list[str]) -> None:
     assert result["status"].isin(["accepted", "pending"]).all()
 
 
-TIP_PARTS: dict[str, tuple[str, str]] = {}
+TIP_PARTS: dict[tuple[str, bool], tuple[str, str]] = {}
 
 
 def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> list[tuple]:
     """Every tip scored against ``written`` in a plain double loop, with the
-    matcher's documented rule: genus and epithet folded, OSA distances each
-    within their limit plus the review allowance, score = 100 * (1 - edits /
-    letters), kept from ``review_score``."""
+    matcher's documented rule: genus and epithet compared folded, each OSA
+    distance within its limit plus the review allowance, score = 100 * (1 -
+    edits / letters), kept from ``review_score``; the letters as written
+    are scored too and each tip keeps its better score."""
     from curation.names.parse import parse_name
 
-    def parts(name: str) -> tuple[str, str]:
+    def parts(name: str, fold: bool) -> tuple[str, str]:
         p = parse_name(name)
-        g, e = fold_spelling(pd.Series([p.genus or "", p.epithet or ""]))
+        g, e = (p.genus or "").lower(), (p.epithet or "").lower()
+        if fold:
+            g, e = fold_spelling(pd.Series([g, e]))
         return g, e
 
-    wg, we = parts(written)
-    extra = options.review_extra_edits
-    found = []
-    for tip in tips:
-        if tip not in TIP_PARTS:
-            TIP_PARTS[tip] = parts(tip)
-        tg, te = TIP_PARTS[tip]
-        dg, de = edit_distance(wg, tg), edit_distance(we, te)
-        if dg > allowed_edits(len(wg), options) + extra:
-            continue
-        if de > allowed_edits(len(we), options) + extra:
-            continue
-        score = 100 * (1 - (dg + de) / (max(len(wg), len(tg)) + max(len(we), len(te))))
-        if score >= options.review_score:
-            found.append((tip, round(score, 2)))
-    return sorted(found, key=lambda x: (-x[1], x[0]))
+    def scores(fold: bool) -> dict[str, tuple[float, bool]]:
+        wg, we = parts(written, fold)
+        extra = options.review_extra_edits
+        out = {}
+        for tip in tips:
+            if (tip, fold) not in TIP_PARTS:
+                TIP_PARTS[(tip, fold)] = parts(tip, fold)
+            tg, te = TIP_PARTS[(tip, fold)]
+            if not tg or not te:
+                continue
+            dg, de = edit_distance(wg, tg), edit_distance(we, te)
+            limit_g, limit_e = allowed_edits(len(wg), options), allowed_edits(len(we), options)
+            if dg > limit_g + extra or de > limit_e + extra:
+                continue
+            score = 100 * (1 - (dg + de) / (max(len(wg), len(tg)) + max(len(we), len(te))))
+            if score >= options.review_score:
+                out[tip] = (round(score, 2), bool(dg <= limit_g and de <= limit_e))
+        return out
+
+    found = scores(True)
+    for tip, value in scores(False).items():
+        if tip not in found or value[0] > found[tip][0]:
+            found[tip] = value
+    return sorted(((t, s) for t, (s, _) in found.items()), key=lambda x: (-x[1], x[0]))
 
 
 def test_fuzzy_blocking_finds_what_a_double_loop_finds() -> None:
@@ -308,3 +319,13 @@ def test_tip_labels_that_are_not_names() -> None:
     quoted = _row(result, "quoted label")
     assert (quoted["stage"], quoted["tip_label"]) == ("canonical", "'quoted label'")
     assert match_names(["t2"], tips)["stage"].iloc[0] == "unparseable"
+
+
+def test_folding_does_not_hide_the_closer_name_as_written() -> None:
+    # "zyrvvuus" folds to "zirvus", one edit from "tirvus"; as written it is
+    # one transposition from "zyrvuvus". The closer-as-written tip must not
+    # lose to the folded neighbour.
+    tips = ["Dolyaxis_zyrvuvus", "Dolyaxis_tirvus"]
+    row = _row(match_names(["Dolyaxis zyrvvuus"], tips), "Dolyaxis zyrvvuus")
+    assert row["tip_label"] == "Dolyaxis_zyrvuvus" or row["status"] == "pending"
+    assert "Dolyaxis_zyrvuvus" in [c[0] for c in row["candidates"]]

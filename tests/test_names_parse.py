@@ -116,3 +116,10 @@ def test_any_text_parses_without_raising(text: str) -> None:
     parsed = parse_name(text)
     assert parsed.written == text
     assert parsed.parseable == bool(parsed.canonical)
+
+
+@pytest.mark.parametrize("written", ["Aus_bus", "Aus bus", "Aus_bus_V12", "Aus_bus_2"])
+def test_fast_path_gives_what_the_full_parser_gives(written: str) -> None:
+    from curation.names.parse import _fast_row
+
+    assert _fast_row(written) == parse_name(written).model_dump()

@@ -22,7 +22,8 @@ from curation.names import (
     summarise_names,
 )
 from curation.store import Store, current_decisions
-from curation.store.models import LedgerEvent, NameDecision, StoredFinding
+from curation.store.models import LedgerEvent, NameDecision, Source, StoredFinding, Synonym
+from curation.timestamps import now
 from tests.names_helpers import seed_store
 
 # The test tree:
@@ -245,3 +246,33 @@ def test_names_commands_run(store: Store, store_url: str, tree_set: int, tmp_pat
     decided = runner.invoke(app, ["decide-name", *base, "Zzz qqq", "--reject"])
     assert decided.exit_code == 0, decided.output
     assert _in_force(store, tree_set).loc["Zzz qqq", "status"] == "rejected"
+
+
+def test_synonym_and_accepted_name_merge_under_one_tip(store: Store) -> None:
+    tree_set = seed_store(store, NEWICK, ["Old name", "Ius jus"], SYNONYMS)
+    report = reconcile_names(store, tree_set)
+    shared = [f for f in report.findings if f.code == "names.shared_tip"]
+    assert len(shared) == 1 and shared[0].subject == "Ius_jus"
+    assert shared[0].details["written_names"] == ["Ius jus", "Old name"]
+    assert shared[0].details["stages"] == ["canonical", "synonym"]
+    assert "merged" in shared[0].message
+
+
+def test_a_pending_name_is_matched_again_when_synonyms_arrive(store: Store) -> None:
+    tree_set = seed_store(store, NEWICK, ["Old name"])
+    reconcile_names(store, tree_set)
+    first = _in_force(store, tree_set).loc["Old name"]
+    assert (first["status"], first["stage"]) == ("pending", "unmatched")
+    with store.transaction() as session:
+        source = Source(
+            sha256="d" * 64, size_bytes=1, kind="synonym", format="csv", file_name="s.csv",
+            imported_at=now(),
+        )  # fmt: skip
+        session.add(source)
+        session.flush()
+        session.add(Synonym(source_id=source.id, synonym="Old name", accepted="Ius jus"))
+    again = reconcile_names(store, tree_set)
+    assert again.new_decisions == 1
+    history = decision_history(store, tree_set, "Old name")
+    assert history["stage"].tolist() == ["unmatched", "synonym"]
+    assert history["supersedes_id"].iloc[1] == first["decision_id"]

@@ -9,6 +9,7 @@ from __future__ import annotations
 import sys
 
 from curation.cli import (  # noqa: F401  (each module registers its commands)
+    bundle_commands,
     demo_commands,
     diagnostics_commands,
     import_commands,

@@ -19,6 +19,7 @@ read quickly and only the trees wanted are parsed.
 from __future__ import annotations
 
 import re
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 
 from curation.errors import FormatError, Problem
@@ -202,7 +203,7 @@ class _Scanner:
             )
 
 
-def _block_commands(scanner: _Scanner, block: str, begin: int):  # type: ignore[no-untyped-def]
+def _block_commands(scanner: _Scanner, block: str, begin: int) -> Iterator[_Token]:
     """Yield the first token of each command of a block, up to its END."""
     while True:
         token = scanner.token()

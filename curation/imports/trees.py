@@ -322,17 +322,15 @@ def _read_nexus(
         try:
             arrays = parse_newick(body, source=file)
         except FormatError as error:
-            if body is tree.text:
-                problems.append(_problem_of(shift_error(error, text, tree.offset)))
-            elif len(problems) == before:
-                # Renaming moved the columns: parse the text as written to
-                # report the place in the file.
+            located = error
+            if body is not tree.text:
+                # Renaming moved the columns: the text as written gives the
+                # place in the file.
                 try:
                     parse_newick(tree.text, source=file)
                 except FormatError as original:
-                    problems.append(_problem_of(shift_error(original, text, tree.offset)))
-                else:  # pragma: no cover - renaming never breaks a tree
-                    problems.append(_problem_of(shift_error(error, text, tree.offset)))
+                    located = original
+            problems.append(_problem_of(shift_error(located, text, tree.offset)))
             if len(problems) >= _MAX_PROBLEMS_PARSED:
                 break
             continue

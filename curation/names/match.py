@@ -15,7 +15,8 @@ Stages, in order; the first that decides a name wins:
    ae/e, oe/e, y/i, k/c, doubled letters, -ii/-i).
 6. ``fuzzy``: genus and epithet scored separately by optimal string
    alignment distance (a transposition is one edit), on the folded
-   spellings, within edit limits that grow with length; genus may be fuzzy
+   spellings and on the letters as written (each pair keeps its better
+   score), within edit limits that grow with length; genus may be fuzzy
    too. Candidates come from blocks (genera close to the written genus,
    within a length window), never from all pairs.
 7. ``genus``: only the genus matched; candidates are that genus's tips.
@@ -156,17 +157,28 @@ GENDER_GROUPS: list[tuple[str, ...]] = [
 ]
 
 
+_GROUPS_BY_ENDING: dict[str, list[int]] = {}
+for _number, _group in enumerate(GENDER_GROUPS):
+    for _ending in set(_group):
+        _GROUPS_BY_ENDING.setdefault(_ending, []).append(_number)
+
+
 def gender_variants(epithet: str) -> set[str]:
     """Return the other gender forms of ``epithet`` (empty when it has no
     recognised adjectival ending), per the agreement rules of ICZN Art.
     31.2 and ICN Art. 23.5; the epithet itself is not included."""
     found: set[str] = set()
-    for group in GENDER_GROUPS:
-        for ending in sorted(set(group), key=len, reverse=True):
-            if epithet.endswith(ending) and len(epithet) > len(ending) + 1:
-                stem = epithet[: -len(ending)]
-                found.update(stem + other for other in group)
-                break
+    done: set[int] = set()
+    # Longest ending first, so that -rum is read before -um in each group.
+    for size in (4, 3, 2, 1):
+        if len(epithet) <= size + 1:
+            continue
+        ending = epithet[-size:]
+        for number in _GROUPS_BY_ENDING.get(ending, ()):
+            if number not in done:
+                done.add(number)
+                stem = epithet[:-size]
+                found.update(stem + other for other in GENDER_GROUPS[number])
     found.discard(epithet)
     return found
 
@@ -530,16 +542,28 @@ def match_names(
         settle("gender", pairs.assign(score=95.0))
 
     # 5. spelling variants; 6. fuzzy; 7. genus: on folded spellings
-    def folded(frame: pd.DataFrame) -> pd.DataFrame:
-        epithet = frame["epithet"].fillna("")
-        infra = frame["infraspecific"].fillna("")
-        both = (epithet + " " + infra).str.strip()
-        return pd.DataFrame(
-            {"g": fold_spelling(frame["genus"].fillna("")), "e": fold_spelling(both)}
+    def folded(frame: pd.DataFrame, other: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Folded genus ``g`` and epithet ``e`` of two frames, folding the
+        distinct values of both at once (written names repeat tip names)."""
+        both = pd.concat([frame, other], ignore_index=True)
+        epithet = both["epithet"].fillna("")
+        infra = both["infraspecific"].fillna("")
+        folded_all = pd.DataFrame(
+            {
+                "g": fold_spelling(both["genus"].fillna("")).to_numpy(),
+                "e": fold_spelling((epithet + " " + infra).str.strip()).to_numpy(),
+            }
         )
+        first = folded_all.iloc[: len(frame)].reset_index(drop=True)
+        second = folded_all.iloc[len(frame) :].reset_index(drop=True)
+        return first, second
 
-    wf = folded(parsed)
-    tf = folded(tparsed)
+    def as_written(frame: pd.DataFrame) -> pd.DataFrame:
+        epithet = frame["epithet"].fillna("")
+        both = (epithet + " " + frame["infraspecific"].fillna("")).str.strip()
+        return pd.DataFrame({"g": frame["genus"].fillna("").str.lower(), "e": both.str.lower()})
+
+    wf, tf = folded(parsed, tparsed)
     tf = tf[tf["g"] != ""]
     w_ok = (wf["g"] != "").to_numpy()
     w_key = (wf["g"] + " " + wf["e"]).where(pd.Series(w_ok & (wf["e"] != "").to_numpy()), "")
@@ -556,6 +580,17 @@ def match_names(
         tips_f = tf.reset_index(drop=True)
         tip_labels = tparsed.loc[tf.index, "tip"].to_numpy()
         scored = _fuzzy(wf.iloc[fuzzy_rows].reset_index(drop=True), tips_f, opts)
+        # Folding can make a typo cost more ("zyrvvuus" folds to "zirvus",
+        # one edit from "tirvus" but two from "zirvuvus", the name it was
+        # meant to be): every name is scored on its letters as written too,
+        # and each pair keeps its better score.
+        wr = as_written(parsed).iloc[fuzzy_rows].reset_index(drop=True)
+        tips_r = as_written(tparsed).loc[tf.index].reset_index(drop=True)
+        scored = (
+            pd.concat([scored, _fuzzy(wr, tips_r, opts)], ignore_index=True)
+            .sort_values(["w", "t", "score"], ascending=[True, True, False], kind="stable")
+            .drop_duplicates(["w", "t"])
+        )
         if not scored.empty:
             scored = pd.DataFrame(
                 {

@@ -345,6 +345,41 @@ def _parse_uncached(written: str) -> ParsedName:
     )
 
 
+_EMPTY_ROW = {
+    name: field.get_default(call_default_factory=True)
+    for name, field in ParsedName.model_fields.items()
+    if name != "written"
+}
+
+
+def _fast_row(written: object) -> dict[str, object] | None:
+    """The fields of a clean ``Genus_epithet[_suffix]`` name as a plain dict,
+    without building a model (the same values :func:`parse_name` gives);
+    None for any other name."""
+    if not isinstance(written, str):
+        return None
+    fast = SIMPLE.match(written)
+    if fast is None:
+        return None
+    genus, epithet, suffix = fast.groups()
+    steps = ["underscores to spaces"] if "_" in written else []
+    if suffix:
+        steps.append(f"set aside suffix {suffix!r}")
+    row = dict(_EMPTY_ROW)
+    row.update(
+        written=written,
+        cleaned=written.replace("_", " "),
+        genus=genus,
+        epithet=epithet,
+        suffix=suffix,
+        canonical=f"{genus} {epithet}",
+        transformations=steps,
+        qualifiers=[],
+        leftovers=[],
+    )
+    return row
+
+
 @lru_cache(maxsize=200_000)
 def parse_name(text: str) -> ParsedName:
     """Return ``text`` read into a :class:`ParsedName`.
@@ -367,6 +402,6 @@ def parse_names(names: list[str] | pd.Series) -> pd.DataFrame:
     if series.empty:
         return pd.DataFrame(columns=PARSED_COLUMNS)
     codes, uniques = pd.factorize(series, use_na_sentinel=False)
-    rows = [parse_name(u if isinstance(u, str) else str(u)).__dict__ for u in uniques]
+    rows = [_fast_row(u) or parse_name(str(u)).__dict__ for u in uniques]
     table = pd.DataFrame(rows, columns=PARSED_COLUMNS)
     return table.iloc[codes].reset_index(drop=True)
