@@ -88,6 +88,28 @@ class FaultOptions(BaseModel):
     conflict_ratio: float = 1.5
 
 
+def _key_codes(frame: pd.DataFrame) -> pd.DataFrame:
+    """Integer codes of trait, species group and genus (reused when the
+    frame carries them as ``trait_code``/``group_code``/``genus_code``)."""
+    if "trait_code" in frame:
+        return pd.DataFrame(
+            {
+                "trait": frame["trait_code"].to_numpy(),
+                "group": frame["group_code"].to_numpy(),
+                "genus": frame["genus_code"].to_numpy(),
+            },
+            index=frame.index,
+        )
+    return pd.DataFrame(
+        {
+            "trait": pd.factorize(frame["trait"])[0],
+            "group": pd.factorize(frame["group"])[0],
+            "genus": pd.factorize(frame["genus"])[0],
+        },
+        index=frame.index,
+    )
+
+
 def _group_median(values: pd.Series, keys: list[pd.Series]) -> pd.Series:
     return values.groupby(keys, sort=False, dropna=False).transform("median")
 
@@ -109,14 +131,7 @@ def find_faults(frame: pd.DataFrame, options: FaultOptions | None = None) -> pd.
     options = options or FaultOptions()
     out = pd.DataFrame(index=frame.index)
     # Integer codes of the string keys, hashed once for every rule below.
-    codes = pd.DataFrame(
-        {
-            "trait": pd.factorize(frame["trait"])[0],
-            "group": pd.factorize(frame["group"])[0],
-            "genus": pd.factorize(frame["genus"])[0],
-        },
-        index=frame.index,
-    )
+    codes = _key_codes(frame)
     continuous = frame["kind"].to_numpy() == "continuous"
     value = frame["value"].to_numpy(dtype=float)
     has_value = continuous & frame["number_ok"].to_numpy() & ~np.isnan(value)
@@ -213,15 +228,17 @@ def _written_step(frame: pd.DataFrame) -> np.ndarray:
     return np.power(10.0, -decimals.astype(float))
 
 
-def _tidy(series: pd.Series, *, upper: bool = False) -> pd.Series:
-    """Strip (and upper-case) each distinct value once, not each row."""
+def _tidy_codes(series: pd.Series, *, upper: bool = False) -> np.ndarray:
+    """Codes of the values stripped (and upper-cased), -1 for blank or
+    missing; each distinct value is tidied once, not each row."""
     codes, uniques = pd.factorize(series, use_na_sentinel=True)
-    tidy = pd.Index(uniques).astype(str).str.strip()
+    tidy = pd.Index(uniques, dtype=object).astype(str).str.strip()
     if upper:
         tidy = tidy.str.upper()
-    values = np.asarray(tidy, dtype=object)
-    out = np.where(codes >= 0, values[np.maximum(codes, 0)] if len(values) else None, None)
-    return pd.Series(out, index=series.index, dtype=object)
+    tidy_codes, tidy_values = pd.factorize(tidy)
+    blank = np.asarray(tidy_values == "", dtype=bool)
+    tidy_codes = np.where(blank[tidy_codes], -1, tidy_codes) if len(tidy_codes) else tidy_codes
+    return np.where(codes >= 0, tidy_codes[np.maximum(codes, 0)] if len(tidy_codes) else -1, -1)
 
 
 def _duplicates(frame: pd.DataFrame, codes: pd.DataFrame) -> pd.DataFrame:
@@ -232,8 +249,8 @@ def _duplicates(frame: pd.DataFrame, codes: pd.DataFrame) -> pd.DataFrame:
     before in the same source. ``repeated_value`` marks the ones that repeat
     a trait already measured on the specimen: those leave species values.
     """
-    institution = pd.factorize(_tidy(frame["institution"], upper=True))[0]
-    specimen = pd.factorize(_tidy(frame["specimen_id"]))[0]
+    institution = _tidy_codes(frame["institution"], upper=True)
+    specimen = _tidy_codes(frame["specimen_id"])
     named = (institution >= 0) & (specimen >= 0)
     order = np.lexsort(
         (frame["id"].to_numpy(), frame["trait_source_id"].to_numpy(), frame["priority"].to_numpy())

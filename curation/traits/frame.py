@@ -177,8 +177,14 @@ def prepare_frame(
     frame["group"] = tip.where(tip.notna(), "name:" + frame["written_name"].astype(str))
     frame["group"] = frame["group"].astype(object)
     codes, groups = pd.factorize(frame["group"])
-    genera = pd.Index(groups).astype(str).str.split(r"[_ ]", n=1, regex=True).str[0]
-    frame["genus"] = np.asarray(genera, dtype=object)[codes] if len(groups) else frame["group"]
+    genera = pd.Index(groups, dtype=object).astype(str).str.split(r"[_ ]", n=1, regex=True).str[0]
+    genus_codes, genus_names = pd.factorize(pd.Index(genera, dtype=object))
+    frame["genus"] = (
+        np.asarray(genus_names, dtype=object)[genus_codes[codes]] if len(groups) else ""
+    )
+    frame["trait_code"] = trait_codes
+    frame["group_code"] = codes
+    frame["genus_code"] = genus_codes[codes] if len(groups) else codes
     flags = find_faults(frame, options)
     frame = frame.join(flags)
     named = frame["specimen_id"].notna() & frame["institution"].notna()
@@ -215,7 +221,7 @@ def prepare_frame(
         dtype=object,
     )
     frame["flags"] = spelled[inverse.reshape(-1)] if len(frame) else pd.Series(dtype=object)
-    return frame.drop(columns=["number_ok", "group"])
+    return frame.drop(columns=["number_ok", "group", "trait_code", "group_code", "genus_code"])
 
 
 def measurements_frame(
