@@ -8,7 +8,17 @@ from __future__ import annotations
 
 import sys
 
-from curation.cli import demo_commands, diagnostics_commands, store_commands  # noqa: F401
+from curation.cli import (  # noqa: F401  (each module registers its commands)
+    bundle_commands,
+    demo_commands,
+    diagnostics_commands,
+    import_commands,
+    names_commands,
+    store_commands,
+    trait_commands,
+    trait_import_commands,
+    tree_commands,
+)
 from curation.cli.app import app, console
 from curation.errors import TipledgerError
 

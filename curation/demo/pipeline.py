@@ -1,26 +1,380 @@
 """The demo: build a store from the invented sample scenario and run every
-stage that exists, end to end."""
+stage that exists, end to end.
+
+The pipeline is a list of steps. Each step looks up the library function
+it needs; a stage that is not part of this build yet is reported as
+skipped, so new stages slot in by adding one step. A step that exists and
+fails stops the demo with its error: the demo is the project's smoke test.
+"""
 
 from __future__ import annotations
 
+import importlib
+import json
+import pkgutil
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
-from curation.store import create_store
+from pydantic import BaseModel
+from sqlalchemy import select
+
+from curation.demo.generator import (
+    DEFAULT_SEED,
+    ScenarioFiles,
+    generate_scenario,
+    scenario_files,
+)
+from curation.errors import ConflictError, NotFoundError
+from curation.imports.common import SourceInfo, read_source_bytes, sha256_of
+from curation.store import Store, create_store
+from curation.store.models import Source, Tree, TreeSet
 from curation.store.summary import StoreSummary, summarise_store
 
-__all__ = ["run_demo"]
+__all__ = ["DemoReport", "StepResult", "run_demo", "DEMO_STEPS"]
+
+DEMO_USER = "demo"
 
 
-def run_demo(folder: str | Path = "demo-output") -> StoreSummary:
-    """Create (or reuse) the store ``folder/tipledger.db`` and run the stages.
+class StepResult(BaseModel):
+    """What one step of the demo did."""
 
-    Stages so far: the store. Importers and later stages add their step
-    here as they land.
+    step: str
+    status: str  # done | skipped
+    message: str
+
+
+class DemoReport(BaseModel):
+    """The steps run, and what the demo store holds at the end."""
+
+    folder: str
+    store: str
+    samples: str
+    steps: list[StepResult]
+    ids: dict[str, int]  # tree_set, posterior_set, tree: what the steps stored
+    summary: StoreSummary
+
+
+class StageMissingError(Exception):
+    """A stage's library function is not in this build (yet)."""
+
+
+def _function(package: str, name: str) -> Callable[..., Any]:
+    """Return the library function ``name`` of a stage's ``package`` (from
+    the package itself or, before it lists it, one of its modules), or
+    raise :class:`StageMissingError`."""
+    try:
+        module = importlib.import_module(package)
+    except ModuleNotFoundError as missing:
+        # Only the stage's own package being absent means "not built yet";
+        # a stage that fails to import is a bug and must show.
+        if missing.name is None or not package.startswith(missing.name):
+            raise
+        raise StageMissingError(f"{package}.{name} is not available yet") from None
+    found = getattr(module, name, None)
+    if found is None and hasattr(module, "__path__"):
+        for info in pkgutil.iter_modules(module.__path__):
+            found = getattr(importlib.import_module(f"{package}.{info.name}"), name, None)
+            if found is not None:
+                break
+    if found is None:
+        raise StageMissingError(f"{package}.{name} is not available yet")
+    return found  # type: ignore[no-any-return]
+
+
+@dataclass
+class DemoContext:
+    """What the steps share: the store, the sample files and what earlier
+    steps produced (tree set ids, species values ...)."""
+
+    store: Store
+    files: ScenarioFiles
+    folder: Path
+    burn_in: int
+    results: dict[str, Any] = field(default_factory=dict)
+
+
+def _import_once(
+    context: DemoContext, importer: Callable[..., Any], path: Path, **options: Any
+) -> int:
+    """Import ``path`` unless the store already holds it (a demo run again
+    in the same folder); return the source id either way."""
+    info = SourceInfo(
+        label=f"demo: {path.name}",
+        citation=f"Invented demo scenario (generate-scenario --seed {context.files.seed})",
+        licence="CC0-1.0",
+    )
+    try:
+        result = importer(context.store, path, info=info, who=DEMO_USER, **options)
+        return int(result.source_id)
+    except ConflictError:
+        digest = sha256_of(read_source_bytes(path))
+        with context.store.reading() as session:
+            stored = session.scalar(select(Source.id).where(Source.sha256 == digest))
+        if stored is None:  # a conflict of another kind: show it
+            raise
+        return int(stored)
+
+
+def _tree_set_of(context: DemoContext, source_id: int) -> int:
+    with context.store.reading() as session:
+        found = session.scalar(
+            select(TreeSet.id).where(TreeSet.source_id == source_id).order_by(TreeSet.id)
+        )
+    return int(found)
+
+
+def _step_import_trees(context: DemoContext) -> str:
+    import_trees = _function("curation.imports", "import_trees")
+    tree_source = _import_once(context, import_trees, context.files.tree)
+    posterior_source = _import_once(
+        context, import_trees, context.files.posterior, burn_in=context.burn_in
+    )
+    context.results["tree_set"] = _tree_set_of(context, tree_source)
+    context.results["posterior_set"] = _tree_set_of(context, posterior_source)
+    with context.store.reading() as session:
+        tree_id = session.scalar(
+            select(Tree.id).where(Tree.tree_set_id == _need(context, "tree_set"))
+        )
+    context.results["tree"] = int(tree_id)
+    return (
+        f"dated tree as set {context.results['tree_set']}, posterior sample (burn-in "
+        f"{context.burn_in} skipped) as set {context.results['posterior_set']}"
+    )
+
+
+def _step_import_synonyms(context: DemoContext) -> str:
+    import_synonyms = _function("curation.imports", "import_synonyms")
+    _import_once(context, import_synonyms, context.files.synonyms)
+    _import_once(context, import_synonyms, context.files.checklist)
+    table, checklist = context.files.synonyms.name, context.files.checklist.name
+    return f"synonym table {table}, Darwin Core Taxon checklist {checklist}"
+
+
+def _step_import_traits(context: DemoContext) -> str:
+    import_traits = _function("curation.imports", "import_traits")
+    # Source 1: one row per specimen; units in the headers (body_mass_g).
+    _import_once(
+        context,
+        import_traits,
+        context.files.traits_wide,
+        layout="wide",
+        columns={"taxon": "taxon", "institution": "institution", "specimen": "catalog_number"},
+        traits=["body_length_mm", "tail_length_mm", "head_width_mm", "body_mass_g", "activity"],
+        priority=10,
+    )
+    # Source 2: one row per measurement, Windows-1252 with decimal commas.
+    _import_once(
+        context,
+        import_traits,
+        context.files.traits_long,
+        layout="long",
+        columns={
+            "taxon": "species",
+            "institution": "museum",
+            "specimen": "catalogue_no",
+            "trait": "trait",
+            "value": "value",
+            "unit": "unit",
+        },
+        delimiter="\t",
+        encoding="cp1252",
+        decimal=",",
+        priority=20,
+    )
+    wide, long = context.files.traits_wide.name, context.files.traits_long.name
+    return f"{wide} (wide, mm and g), {long} (long, cm and kg)"
+
+
+def _step_import_darwin_core(context: DemoContext) -> str:
+    import_darwin_core = _function("curation.imports", "import_darwin_core")
+    _import_once(context, import_darwin_core, context.files.darwin_core, priority=30)
+    return f"Darwin Core Archive {context.files.darwin_core.name}"
+
+
+def _step_define_traits(context: DemoContext) -> str:
+    define_traits = _function("curation.traits", "define_traits")
+    define_traits(context.store, context.files.trait_definitions, who=DEMO_USER)
+    return f"trait definitions from {context.files.trait_definitions.name}"
+
+
+def _step_reconcile_names(context: DemoContext) -> str:
+    reconcile_names = _function("curation.names", "reconcile_names")
+    report = reconcile_names(context.store, _need(context, "tree_set"), who=DEMO_USER)
+    context.results["names"] = report
+    return _describe(report)
+
+
+def _step_check_trees(context: DemoContext) -> str:
+    check_trees = _function("curation.trees", "check_trees")
+    parts = []
+    for key in ("tree_set", "posterior_set"):
+        report = check_trees(context.store, _need(context, key))
+        parts.append(_describe(report))
+    return "; ".join(parts)
+
+
+def _step_flag_measurements(context: DemoContext) -> str:
+    flag_measurements = _function("curation.traits", "flag_measurements")
+    report = flag_measurements(context.store, _need(context, "tree_set"))
+    return _describe(report)
+
+
+def _step_species_values(context: DemoContext) -> str:
+    species_values = _function("curation.traits", "species_values")
+    frame = species_values(context.store, _need(context, "tree_set"))
+    context.results["species"] = frame
+    return f"{len(frame)} species values"
+
+
+def _step_diagnose_traits(context: DemoContext) -> str:
+    diagnose_traits = _function("curation.diagnostics", "diagnose_traits")
+    found = diagnose_traits(context.store, _need(context, "tree"), _need(context, "species"))
+    return f"{len(found)} trait diagnostics"
+
+
+def _step_repair_tree(context: DemoContext) -> str:
+    make_ultrametric = _function("curation.trees", "make_ultrametric")
+    lengthen_zero_tips = _function("curation.trees", "lengthen_zero_tips")
+    # Opt-in repairs, each a derived tree set and a ledger event: first the
+    # rounding-level deviation, then the zero-length tips that would make
+    # the Brownian covariance singular.
+    level = make_ultrametric(context.store, _need(context, "tree_set"), who=DEMO_USER)
+    lengthened = lengthen_zero_tips(context.store, level.id, length=0.01, who=DEMO_USER)
+    with context.store.reading() as session:
+        tree_id = session.scalar(select(Tree.id).where(Tree.tree_set_id == lengthened.id))
+    context.results["repaired_tree"] = int(tree_id)
+    return f"made ultrametric (set {level.id}), zero-length tips lengthened (set {lengthened.id})"
+
+
+def _step_make_bundle(context: DemoContext) -> str:
+    make_bundle = _function("curation.bundle", "make_bundle")
+    options_type = _function("curation.bundle", "BundleOptions")
+    verify_bundle = _function("curation.bundle", "verify_bundle")
+    target = context.folder / "bundle"
+    tree = context.results.get("repaired_tree") or _need(context, "tree")
+    options = options_type(tree_id=tree, make_zip=True, permutations=999, seed=1)
+    result = make_bundle(context.store, target, options, replace=True, who=DEMO_USER)
+    report = verify_bundle(target)
+    verdict = "verifies" if report.ok else f"{len(report.problems)} problems"
+    return (
+        f"bundle in {target} ({result.tips} tips, {len(result.traits)} traits, "
+        f"{result.tips_pruned} tips pruned): {verdict}"
+    )
+
+
+def _need(context: DemoContext, key: str) -> Any:
+    """What an earlier step produced, or :class:`StageMissingError` when that
+    step was skipped."""
+    if key not in context.results:
+        raise StageMissingError(f"needs the {key.replace('_', ' ')} of an earlier step")
+    return context.results[key]
+
+
+def _describe(report: Any) -> str:
+    """A one-line account of a stage's report: its own sentence if it has
+    one, else its counts (integer fields and mappings of them)."""
+    for attribute in ("sentence", "summary_line", "describe"):
+        value = getattr(report, attribute, None)
+        if callable(value):
+            value = value()
+        if isinstance(value, str):
+            return value
+    names = type(report).model_fields if isinstance(report, BaseModel) else {}
+    fields = {name: getattr(report, name) for name in names}
+    parts: list[str] = []
+    for key, value in fields.items():
+        if isinstance(value, bool):
+            continue
+        if isinstance(value, int):
+            parts.append(f"{key.replace('_', ' ')}: {value}")
+        elif isinstance(value, dict) and value and all(isinstance(v, int) for v in value.values()):
+            inner = ", ".join(f"{k}: {v}" for k, v in value.items())
+            parts.append(f"{key.replace('_', ' ')}: {inner}")
+    return "; ".join(parts[:8]) or type(report).__name__
+
+
+# Steps in the order the data flows; each needs what those before it stored.
+DEMO_STEPS: list[tuple[str, Callable[[DemoContext], str]]] = [
+    ("import trees", _step_import_trees),
+    ("import synonyms", _step_import_synonyms),
+    ("import traits", _step_import_traits),
+    ("import Darwin Core", _step_import_darwin_core),
+    ("define traits", _step_define_traits),
+    ("reconcile names", _step_reconcile_names),
+    ("check trees", _step_check_trees),
+    ("flag measurements", _step_flag_measurements),
+    ("species values", _step_species_values),
+    ("diagnose traits", _step_diagnose_traits),
+    ("repair tree", _step_repair_tree),
+    ("make bundle", _step_make_bundle),
+]
+
+
+def run_demo(
+    folder: str | Path = "demo-output",
+    *,
+    samples: str | Path | None = None,
+    seed: int = DEFAULT_SEED,
+    store: str | None = None,
+) -> DemoReport:
+    """Build the demo store ``folder/tipledger.db`` from the sample scenario
+    and run every stage this build has, in order.
+
+    Args:
+        folder: where the store (and the bundle) go; created if needed. A
+            store already there is reused: files it holds are not imported
+            again.
+        samples: a folder written by :func:`generate_scenario`; by default
+            the scenario is generated afresh into ``folder/samples`` with
+            ``seed`` (byte-identical to the committed ``samples/``).
+        store: a store file or SQLAlchemy URL to build instead of
+            ``folder/tipledger.db`` (created when new, reused otherwise).
 
     Returns:
-        The counts of what the demo store holds.
+        A :class:`DemoReport`: each step done or skipped, and the counts of
+        what the store holds.
+
+    Raises:
+        TipledgerError: a stage that exists failed on the samples.
     """
     target = Path(folder)
     target.mkdir(parents=True, exist_ok=True)
-    with create_store(target / "tipledger.db") as store:
-        return summarise_store(store)
+    if samples is None:
+        files = generate_scenario(target / "samples", seed=seed)
+    else:
+        files = scenario_files(Path(samples), seed=seed)
+        absent = [str(p) for p in files.all_files() if not p.exists()]
+        if absent:
+            raise NotFoundError(
+                f"{samples!s} is not a complete sample scenario: {', '.join(absent)} missing",
+                file=str(samples),
+                hint="write one with tipledger generate-scenario --folder FOLDER",
+            )
+    burn_in = int(_tree_truth(files)["posterior"]["burn_in"])
+    opened = create_store(store or target / "tipledger.db")
+    steps: list[StepResult] = []
+    with opened:
+        context = DemoContext(opened, files, target, burn_in)
+        for name, step in DEMO_STEPS:
+            try:
+                message = step(context)
+            except StageMissingError as missing:
+                steps.append(StepResult(step=name, status="skipped", message=str(missing)))
+                continue
+            steps.append(StepResult(step=name, status="done", message=message))
+        summary = summarise_store(opened)
+        shown = opened.display_url()
+    return DemoReport(
+        folder=str(target),
+        store=shown,
+        samples=str(files.folder),
+        steps=steps,
+        ids={k: v for k, v in context.results.items() if isinstance(v, int)},
+        summary=summary,
+    )
+
+
+def _tree_truth(files: ScenarioFiles) -> dict[str, Any]:
+    return json.loads(files.truth_trees.read_text(encoding="utf-8"))  # type: ignore[no-any-return]

@@ -9,5 +9,21 @@ from curation.imports.common import (
     register_source,
     sha256_of,
 )
+from curation.imports.trees import (
+    TreeFileContents,
+    TreeImportResult,
+    import_trees,
+    read_tree_file,
+)
 
-__all__ = ["ImportResult", "SourceInfo", "read_source_bytes", "register_source", "sha256_of"]
+__all__ = [
+    "ImportResult",
+    "SourceInfo",
+    "TreeFileContents",
+    "TreeImportResult",
+    "import_trees",
+    "read_source_bytes",
+    "read_tree_file",
+    "register_source",
+    "sha256_of",
+]

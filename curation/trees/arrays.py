@@ -29,6 +29,7 @@ __all__ = [
     "path_sums",
     "quote_label",
     "to_newick",
+    "written_decimals",
 ]
 
 _TOKEN = re.compile(
@@ -59,6 +60,10 @@ class TreeArrays:
         labels: label of each node ('' where none).
         rooted: True for [&R], False for [&U], None when the file is silent.
         comments: bracketed comments by node index, as written.
+        length_decimals: for each node, the number of decimal places its
+            branch length was written with (``1.25`` -> 2, ``1e-3`` -> 3,
+            ``12`` -> 0); -1 where no length was written. ``None`` when the
+            tree was not read from text (the written precision is unknown).
     """
 
     parent: np.ndarray
@@ -66,6 +71,7 @@ class TreeArrays:
     labels: list[str]
     rooted: bool | None = None
     comments: dict[int, list[str]] = field(default_factory=dict)
+    length_decimals: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         n = len(self.parent)
@@ -156,8 +162,10 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
     """
     parent: list[int] = []
     lengths: list[float] = []
+    decimals: list[int] = []
     labels: list[str] = []
     comments: dict[int, list[str]] = {}
+    pending: list[str] = []  # comments written before the node they belong to
     rooted: bool | None = None
     stack: list[int] = []
     current = -1  # the node that labels, lengths and comments attach to
@@ -173,8 +181,13 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
     def new_node(par: int) -> int:
         parent.append(par)
         lengths.append(np.nan)
+        decimals.append(-1)
         labels.append("")
-        return len(parent) - 1
+        node = len(parent) - 1
+        if pending:
+            comments[node] = pending.copy()
+            pending.clear()
+        return node
 
     for match in _TOKEN.finditer(text):
         kind = match.lastgroup
@@ -199,6 +212,11 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
                 rooted = body.upper() == "&R"
             elif current >= 0:
                 comments.setdefault(current, []).append(value)
+            else:
+                # Before a node's label (or a tree's first '('): it belongs
+                # to the node that comes next, e.g. "([&x]A,B)" to A and a
+                # tree-header "[&lnP=-1] (A,B)" to the root.
+                pending.append(value)
             continue
         seen_any = True
         if expect_length:
@@ -207,6 +225,7 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
                 raise fail(f"expected a branch length after ':', found {value!r}", pos)
             try:
                 lengths[current] = float(value)
+                decimals[current] = written_decimals(value)
             except ValueError:
                 raise fail(
                     f"branch length {value!r} is not a number",
@@ -272,7 +291,19 @@ def parse_newick(text: str, *, source: str | None = None) -> TreeArrays:
         labels=labels,
         rooted=rooted,
         comments=comments,
+        length_decimals=np.asarray(decimals, dtype=np.int16),
     )
+
+
+def written_decimals(number: str) -> int:
+    """Return the decimal places a number was written with: the position of
+    its last written digit after the point (``"0.250"`` -> 3, ``"2.5e-3"``
+    -> 4, ``"12"`` -> 0, ``"1.5e2"`` -> 0); used to judge how much of a
+    deviation rounding in the file can explain."""
+    mantissa, _, exponent = number.lower().partition("e")
+    _, _, fraction = mantissa.partition(".")
+    places = len(fraction) - (int(exponent) if exponent else 0)
+    return max(places, 0)
 
 
 def to_newick(tree: TreeArrays, *, lengths: bool = True, precision: int | None = None) -> str:

@@ -3,7 +3,7 @@ ones (imported or derived by a repair) with their tips."""
 
 from __future__ import annotations
 
-from sqlalchemy import select
+from sqlalchemy import insert, select
 from sqlalchemy.orm import Session
 
 from curation.errors import NotFoundError
@@ -111,7 +111,14 @@ def add_tree(
     )
     session.add(tree)
     session.flush()
-    session.add_all(Tip(tree_id=tree.id, position=i, label=label) for i, label in enumerate(tips))
+    if tips:
+        # One executemany INSERT of the tips at the Core level rather than an
+        # ORM object each (2-4 times faster): a posterior sample has hundreds
+        # of thousands of them.
+        session.connection().execute(
+            insert(Tip),
+            [{"tree_id": tree.id, "position": i, "label": label} for i, label in enumerate(tips)],
+        )
     tree_set.tree_count = (tree_set.tree_count or 0) + 1
     session.flush()
     return tree

@@ -1,0 +1,353 @@
+"""Gathering what a bundle needs from the store, in one place.
+
+Everything after this step (writing the files, the Data Package, the
+provenance, the report) works on :class:`BundleInputs` alone and never
+reads the store again, so a bundle is a function of these inputs and the
+options.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+import pandas as pd
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+from sqlalchemy import select
+
+from curation.errors import InputError
+from curation.store.decisions import current_decisions
+from curation.store.engine import Store
+from curation.store.models import (
+    LedgerEvent,
+    Measurement,
+    MeasurementReview,
+    Source,
+    StoredFinding,
+    TraitSource,
+    Tree,
+    TreeSet,
+)
+from curation.trees.arrays import TreeArrays
+from curation.trees.stored import get_tree_set, load_tree, load_tree_set
+
+__all__ = ["BundleInputs", "BundleOptions", "decision_tree_set", "gather_bundle_inputs"]
+
+
+class BundleOptions(BaseModel):
+    """The choices that shape a bundle (all recorded in its provenance)."""
+
+    model_config = ConfigDict(frozen=True)
+
+    tree_id: int | None = Field(None, description="one stored tree")
+    tree_set_id: int | None = Field(None, description="a stored tree set (NEXUS output)")
+    traits: list[str] | None = Field(None, description="traits to include (default: all)")
+    missing: Literal["prune", "keep"] = Field(
+        "prune", description="prune tips without data, or keep them with missing values"
+    )
+    policy: Literal["pool", "priority", "weighted"] = Field(
+        "pool", description="how measurements of several sources make one species value"
+    )
+    include_matrix: bool = Field(False, description="write the variance-covariance matrix")
+    matrix_limit_bytes: int = Field(
+        2_000_000_000, description="refuse a matrix that needs more memory than this"
+    )
+    make_zip: bool = Field(False, description="also write a zip of the bundle")
+    diagnostics: bool = Field(True, description="phylogenetic diagnostics per continuous trait")
+    permutations: int = Field(1000, ge=0, description="permutations of Blomberg's K test")
+    seed: int = Field(0, description="seed of the permutations")
+
+    @model_validator(mode="after")
+    def _one_tree_choice(self) -> BundleOptions:
+        if (self.tree_id is None) == (self.tree_set_id is None):
+            raise InputError(
+                "a bundle needs exactly one of a tree or a tree set",
+                field="tree",
+                hint="give --tree ID for one tree or --tree-set ID for a set",
+            )
+        return self
+
+
+@dataclass
+class BundleInputs:
+    """What the store holds for one bundle, already joined.
+
+    Attributes:
+        trees: (tree row id, name, array view) of every tree, in file order.
+        tree_set: the tree set the trees belong to.
+        decision_set_id: the tree set whose name decisions apply (the
+            original a derived set was repaired from).
+        species: one row per (tip_label, trait) with kind, scale, unit, n,
+            mean, sd, se, median, state and measurement_ids.
+        measurements: the measurements of the chosen traits whose names map
+            to a tip, with source, row, specimen identifiers, the tip, the
+            status and whether a value went into a species value.
+        names: the name decisions in force (one row per written name).
+        findings: the latest findings of each check, with their event.
+        sources: every stored source that fed the bundle.
+        repairs: the chain of repairs from the original trees to these.
+        exclusions: curators' exclusions and re-inclusions in force.
+        events: the ledger events the bundle rests on.
+    """
+
+    options: BundleOptions
+    store_url: str
+    trees: list[tuple[int, str, TreeArrays]]
+    tree_set: dict[str, Any]
+    decision_set_id: int
+    species: pd.DataFrame
+    measurements: pd.DataFrame
+    names: pd.DataFrame
+    findings: pd.DataFrame
+    sources: pd.DataFrame
+    repairs: list[dict[str, Any]]
+    exclusions: pd.DataFrame
+    events: pd.DataFrame
+    trait_info: pd.DataFrame = field(default_factory=pd.DataFrame)
+
+
+def decision_tree_set(session: Any, tree_set: TreeSet) -> TreeSet:
+    """Return the tree set whose name decisions apply to ``tree_set``: the
+    set itself, or for a derived (repaired) set the original it came from
+    (repairs keep tip labels, so the decisions carry over)."""
+    current = tree_set
+    seen = {current.id}
+    while current.derived_from_id is not None and current.derived_from_id not in seen:
+        current = get_tree_set(session, current.derived_from_id)
+        seen.add(current.id)
+    return current
+
+
+def _repair_chain(session: Any, tree_set: TreeSet) -> list[dict[str, Any]]:
+    chain: list[dict[str, Any]] = []
+    current = tree_set
+    while current.derived_from_id is not None:
+        event = session.get(LedgerEvent, current.event_id) if current.event_id else None
+        chain.append(
+            {
+                "tree_set_id": current.id,
+                "derived_from_tree_set_id": current.derived_from_id,
+                "repair": current.repair or "",
+                "event_id": current.event_id,
+                "who": event.who if event else "",
+                "at": event.at.isoformat() if event else "",
+                "parameters": event.parameters if event else {},
+            }
+        )
+        current = get_tree_set(session, current.derived_from_id)
+    chain.reverse()
+    return chain
+
+
+def _measurement_rows(session: Any, traits: list[str] | None) -> pd.DataFrame:
+    query = select(
+        Measurement.id.label("measurement_id"),
+        Measurement.trait_source_id,
+        TraitSource.name.label("trait_source"),
+        TraitSource.priority,
+        Source.id.label("source_id"),
+        Source.file_name.label("source_file"),
+        Source.sha256.label("source_sha256"),
+        Measurement.row_number,
+        Measurement.written_name,
+        Measurement.specimen_id,
+        Measurement.institution,
+        Measurement.trait,
+        Measurement.value_written,
+        Measurement.value_number,
+        Measurement.unit,
+        Measurement.sex,
+        Measurement.life_stage,
+        Measurement.status,
+        Measurement.reason,
+    ).join(TraitSource, Measurement.trait_source_id == TraitSource.id)
+    query = query.join(Source, TraitSource.source_id == Source.id)
+    if traits:
+        query = query.where(Measurement.trait.in_(traits))
+    rows = session.execute(query.order_by(Measurement.id)).all()
+    return pd.DataFrame(rows, columns=list(query.selected_columns.keys()))
+
+
+def _reviews_in_force(session: Any) -> pd.DataFrame:
+    latest = select(MeasurementReview).order_by(MeasurementReview.id)
+    rows = [
+        {
+            "measurement_id": r.measurement_id,
+            "action": r.action,
+            "reason": r.reason,
+            "who": r.who,
+            "at": r.at.isoformat(),
+            "event_id": r.event_id,
+        }
+        for r in session.scalars(latest)
+    ]
+    frame = pd.DataFrame(
+        rows, columns=["measurement_id", "action", "reason", "who", "at", "event_id"]
+    )
+    return frame.drop_duplicates("measurement_id", keep="last").reset_index(drop=True)
+
+
+def _curated(
+    store: Store, decision_set_id: int, options: BundleOptions, measurements: pd.DataFrame
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Species values by the traits stage, and the measurements with their
+    converted value, flags and whether they count."""
+    from curation.traits import aggregate_species, measurements_frame
+
+    frame = measurements_frame(store, decision_set_id)
+    species = aggregate_species(frame, traits=options.traits, policy=options.policy)
+    curated = frame.set_index("id")[["value", "target", "factor", "flags", "excluded", "exclusion"]]
+    curated = curated.rename(columns={"target": "target_unit", "excluded": "not_counted"})
+    joined = measurements.join(curated, on="measurement_id")
+    joined["used"] = ~joined["not_counted"].fillna(True).astype(bool)
+    return species, joined.drop(columns=["not_counted"])
+
+
+def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
+    """The findings of the latest event of each kind of check (a later
+    check of the same thing supersedes an earlier one)."""
+    rows = session.execute(
+        select(
+            StoredFinding.id,
+            StoredFinding.code,
+            StoredFinding.severity,
+            StoredFinding.subject,
+            StoredFinding.message,
+            StoredFinding.details,
+            LedgerEvent.id,
+            LedgerEvent.action,
+            LedgerEvent.subject,
+        )
+        .join(LedgerEvent, StoredFinding.event_id == LedgerEvent.id)
+        .order_by(StoredFinding.id)
+    ).all()
+    columns = [
+        "finding_id",
+        "code",
+        "severity",
+        "subject",
+        "message",
+        "details",
+        "event_id",
+        "event_action",
+        "event_subject",
+    ]
+    frame = pd.DataFrame(rows, columns=columns)
+    if frame.empty:
+        return frame
+    latest = frame.groupby(["event_action", "event_subject"])["event_id"].transform("max")
+    return frame[frame["event_id"] == latest].reset_index(drop=True)
+
+
+def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
+    """Read everything a bundle needs from ``store``.
+
+    Returns:
+        :class:`BundleInputs`.
+
+    Raises:
+        NotFoundError: the tree or tree set is not in the store.
+        InputError: a trait asked for has no measurements, or a matrix is
+            asked for a set of several trees.
+    """
+    with store.reading() as session:
+        if options.tree_id is not None:
+            tree_row, arrays = load_tree(session, options.tree_id)
+            tree_set = get_tree_set(session, tree_row.tree_set_id)
+            trees = [(tree_row.id, tree_row.name, arrays)]
+        else:
+            tree_set = get_tree_set(session, int(options.tree_set_id or 0))
+            trees = [(t.id, t.name, a) for t, a in load_tree_set(session, tree_set.id)]
+        if options.include_matrix and len(trees) != 1:
+            raise InputError(
+                f"a variance-covariance matrix is made for one tree; tree set {tree_set.id} "
+                f"holds {len(trees)} trees",
+                field="matrix",
+                hint="give --tree ID for the matrix, or leave out --matrix",
+            )
+        original = decision_tree_set(session, tree_set)
+        names = current_decisions(session, original.id)
+        measurements = _measurement_rows(session, options.traits)
+        if options.traits:
+            present = set(measurements["trait"])
+            unknown = [t for t in options.traits if t not in present]
+            if unknown:
+                known = sorted(set(session.scalars(select(Measurement.trait).distinct()).all()))
+                raise InputError(
+                    f"no measurements of trait(s) {', '.join(map(repr, unknown))} "
+                    f"(traits stored: {', '.join(known) or 'none'})",
+                    field="trait",
+                    hint="give --trait with one of the stored traits",
+                )
+        reviews = _reviews_in_force(session)
+        accepted = names[names["status"] == "accepted"].set_index("written_name")["tip_label"]
+        measurements["tip_label"] = measurements["written_name"].map(accepted)
+        excluded = set(reviews.loc[reviews["action"] == "exclude", "measurement_id"])
+        measurements["curator_excluded"] = measurements["measurement_id"].isin(excluded)
+        tree_source_ids = {
+            sid
+            for sid in session.scalars(
+                select(Tree.source_id).where(Tree.tree_set_id == original.id)
+            ).all()
+            if sid is not None
+        }
+        if original.source_id is not None:
+            tree_source_ids.add(original.source_id)
+        sources = pd.DataFrame(
+            [
+                {
+                    "source_id": s.id,
+                    "kind": s.kind,
+                    "format": s.format,
+                    "file_name": s.file_name,
+                    "sha256": s.sha256,
+                    "size_bytes": s.size_bytes,
+                    "label": s.label,
+                    "citation": s.citation,
+                    "licence": s.licence,
+                    "imported_at": s.imported_at.isoformat(),
+                    "event_id": s.event_id,
+                }
+                for s in session.scalars(select(Source).order_by(Source.id))
+                if s.kind != "tree" or s.id in tree_source_ids
+            ]
+        )
+        events = pd.DataFrame(
+            [
+                {
+                    "event_id": e.id,
+                    "at": e.at.isoformat(),
+                    "who": e.who,
+                    "action": e.action,
+                    "subject": e.subject,
+                    "summary": e.summary,
+                    "parameters": e.parameters,
+                }
+                for e in session.scalars(select(LedgerEvent).order_by(LedgerEvent.id))
+            ]
+        )
+        repairs = _repair_chain(session, tree_set)
+        findings = _findings(session, {tree_set.id, original.id})
+        tree_set_info = {
+            "id": tree_set.id,
+            "name": tree_set.name,
+            "repair": tree_set.repair,
+            "derived_from_id": tree_set.derived_from_id,
+            "tree_count": tree_set.tree_count,
+        }
+    species, measurements = _curated(store, original.id, options, measurements)
+    return BundleInputs(
+        options=options,
+        store_url=store.display_url(),
+        trees=trees,
+        tree_set=tree_set_info,
+        decision_set_id=original.id,
+        species=species.reset_index(drop=True),
+        measurements=measurements,
+        names=names,
+        findings=findings,
+        sources=sources,
+        repairs=repairs,
+        exclusions=reviews,
+        events=events,
+    )

@@ -1,0 +1,88 @@
+"""Commands that import tree files into the store."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+from curation.cli.app import StoreOption, UserOption, app, console
+from curation.imports.common import SourceInfo
+from curation.imports.trees import import_trees
+from curation.store import open_store
+
+LabelOption = Annotated[
+    str, typer.Option("--label", help="Short name of the source (default: the file name).")
+]
+CitationOption = Annotated[
+    str, typer.Option("--citation", help="Where the source was published or came from.")
+]
+LicenceOption = Annotated[
+    str, typer.Option("--licence", help="Terms the source may be used under (e.g. CC-BY-4.0).")
+]
+NotesOption = Annotated[str, typer.Option("--notes", help="Anything else worth recording.")]
+
+
+@app.command("import-trees")
+def import_trees_command(
+    path: Annotated[Path, typer.Argument(help="Newick, NEXUS or NeXML file of one or more trees.")],
+    format: Annotated[
+        str | None,
+        typer.Option(
+            "--format", help="newick, nexus or nexml (default: guessed from the file's content)."
+        ),
+    ] = None,
+    burn_in: Annotated[
+        int, typer.Option("--burn-in", help="Number of trees to skip at the start of the file.")
+    ] = 0,
+    keep_every: Annotated[
+        int,
+        typer.Option("--keep-every", help="After the burn-in, keep every k-th tree (1: all)."),
+    ] = 1,
+    label: LabelOption = "",
+    citation: CitationOption = "",
+    licence: LicenceOption = "",
+    notes: NotesOption = "",
+    store: StoreOption = None,
+    user: UserOption = None,
+) -> None:
+    """Import the trees of a file as one tree set (a posterior sample may be
+    thinned with --burn-in and --keep-every). Labels are kept as written.
+
+    Example: tipledger import-trees posterior.nex --burn-in 100 --keep-every 10
+    """
+    info = SourceInfo(label=label, citation=citation, licence=licence, notes=notes)
+    columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn())
+    with (
+        open_store(store) as opened,
+        Progress(*columns, TimeElapsedColumn(), console=console, transient=True) as bar,
+    ):
+        task = bar.add_task(f"importing {path.name}", total=None)
+
+        def progress(done: int, total: int) -> None:
+            bar.update(task, completed=done, total=total)
+
+        result = import_trees(
+            opened,
+            path,
+            format=format,
+            burn_in=burn_in,
+            keep_every=keep_every,
+            info=info,
+            who=user,
+            progress=progress,
+        )
+    counts = result.counts
+    console.print(
+        f"Stored tree set {result.tree_set_id} from {result.file_name} "
+        f"({result.format}, source {result.source_id}): {counts['trees_stored']} of "
+        f"{counts['trees_in_file']} trees, {counts['distinct_tips']} distinct tips."
+    )
+    if counts["burn_in_skipped"] or keep_every > 1:
+        console.print(
+            f"Skipped {counts['burn_in_skipped']} as burn-in, then kept every {keep_every}."
+        )
+    for warning in result.warnings:
+        console.print(f"Note: {warning}")

@@ -1,0 +1,443 @@
+"""Name decisions in the store: reconciling a tree set's tips with every
+written name, and recording a person's decisions.
+
+Automatic decisions and pending names are :class:`NameDecision` rows. A
+pending decision keeps its ranked candidates in its ``note``, as JSON
+(``{"reason": ..., "candidates": [[tip, score], ...], ...}``), where review
+reads them. A decision in force that is accepted or rejected is never
+asked again; revising one adds a new decision that supersedes it, and the
+old one stays.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import pandas as pd
+from pydantic import BaseModel, Field
+from rapidfuzz import process
+from sqlalchemy import insert, select
+from sqlalchemy.orm import Session
+
+from curation.errors import InputError, NotFoundError, Problem
+from curation.findings import Finding
+from curation.names.match import STAGES, MatchOptions, match_findings, match_names
+from curation.store.decisions import current_decisions
+from curation.store.engine import Store
+from curation.store.ledger import current_user, record_event, record_findings
+from curation.store.models import Measurement, NameDecision, Synonym
+from curation.timestamps import now
+from curation.trees.stored import tip_labels_of_set
+
+__all__ = [
+    "DecisionResult",
+    "ReconcileReport",
+    "STATUSES",
+    "apply_decisions",
+    "check_decisions",
+    "decision_history",
+    "candidates_of",
+    "decide_name",
+    "reconcile_names",
+    "written_names",
+]
+
+STATUSES = ("accepted", "rejected", "pending")
+
+
+class ReconcileReport(BaseModel):
+    """What :func:`reconcile_names` did for one tree set."""
+
+    tree_set_id: int
+    event_id: int
+    written_names: int = Field(description="distinct written names in the measurements")
+    tips: int
+    reused: int = Field(description="names whose accepted or rejected decision was kept")
+    new_decisions: int
+    stages: dict[str, int] = Field(description="decisions in force per stage")
+    accepted: int
+    pending: int
+    rejected: int
+    findings: list[Finding]
+    names_without_tip: list[str]
+    tips_without_data: list[str]
+
+
+class DecisionResult(BaseModel):
+    """Decisions a person added: their ids, the ones they superseded, the
+    ledger event."""
+
+    event_id: int
+    decision_ids: list[int]
+    superseded_ids: list[int | None]
+
+
+def candidates_of(note: str | None) -> list[list[Any]]:
+    """Return the ranked candidates ``[[tip, score], ...]`` kept in a
+    decision's note, or an empty list when the note holds none."""
+    info = note_info(note)
+    return [list(c) for c in info.get("candidates", [])]
+
+
+def note_info(note: str | None) -> dict[str, Any]:
+    """Return a decision note read as JSON (``{"text": note}`` when it is
+    plain text)."""
+    if not note:
+        return {}
+    try:
+        value = json.loads(note)
+    except ValueError:
+        return {"text": note}
+    return value if isinstance(value, dict) else {"text": note}
+
+
+def written_names(session: Session) -> list[str]:
+    """Return the sorted distinct written names of all measurements."""
+    return sorted(session.scalars(select(Measurement.written_name).distinct()).all())
+
+
+def _synonym_frame(session: Session) -> pd.DataFrame:
+    rows = session.execute(select(Synonym.synonym, Synonym.accepted)).all()
+    return pd.DataFrame(rows, columns=["synonym", "accepted"])
+
+
+def _note(row: Any) -> str:
+    return json.dumps(
+        {
+            "automatic": True,
+            "reason": row.reason,
+            "canonical": row.canonical,
+            "candidates": row.candidates,
+        },
+        ensure_ascii=False,
+        sort_keys=True,
+    )
+
+
+def reconcile_names(
+    store: Store,
+    tree_set_id: int,
+    *,
+    options: MatchOptions | None = None,
+    who: str | None = None,
+) -> ReconcileReport:
+    """Match every distinct written name of the measurements against the
+    tips of tree set ``tree_set_id`` and record the decisions.
+
+    Names with an accepted or rejected decision in force are reused, never
+    matched again. Every other name is matched (:func:`match_names`): it is
+    accepted automatically or left pending with its candidates in the note.
+    A pending name whose result did not change gets no new row. New rows,
+    the conflict findings and one ledger event (``reconcile-names``) are
+    stored in one transaction.
+
+    Returns:
+        A :class:`ReconcileReport` with counts per stage and status, the
+        findings and both leftover lists.
+
+    Raises:
+        NotFoundError: no such tree set.
+    """
+    opts = options or MatchOptions()
+    user = current_user(who)
+    with store.transaction() as session:
+        tips = tip_labels_of_set(session, tree_set_id)
+        names = written_names(session)
+        current = current_decisions(session, tree_set_id)
+        settled = current[current["status"].isin(["accepted", "rejected"])]
+        settled_names = set(settled["written_name"])
+        to_match = [n for n in names if n not in settled_names]
+        result = match_names(to_match, tips, _synonym_frame(session), opts)
+        result["note"] = [_note(r) for r in result.itertuples(index=False)]
+        previous = current.set_index("written_name")
+        prev_note = previous["note"].reindex(result["written_name"]).to_numpy()
+        prev_status = previous["status"].reindex(result["written_name"]).to_numpy()
+        prev_id = previous["decision_id"].reindex(result["written_name"]).to_numpy()
+        unchanged = (prev_status == "pending") & (prev_note == result["note"].to_numpy())
+        fresh = result[~unchanged]
+        fresh_prev = prev_id[~unchanged]
+        event = record_event(
+            session,
+            "reconcile-names",
+            subject=f"tree set {tree_set_id}",
+            summary=(
+                f"matched {len(result)} written names against {len(tips)} tips: "
+                f"{int((fresh['status'] == 'accepted').sum())} accepted automatically, "
+                f"{int((result['status'] == 'pending').sum())} pending, "
+                f"{len(settled)} kept from earlier decisions"
+            ),
+            parameters={"tree_set_id": tree_set_id, "options": opts.model_dump()},
+            who=user,
+        )
+        at = now()
+        rows = [
+            {
+                "tree_set_id": tree_set_id,
+                "written_name": r.written_name,
+                "tip_label": r.tip_label if r.status == "accepted" else None,
+                "status": r.status,
+                "stage": r.stage,
+                "score": float(r.score),
+                "runner_up": r.runner_up,
+                "margin": None if pd.isna(r.margin) else float(r.margin),
+                "decided_by": user,
+                "decided_at": at,
+                "note": r.note,
+                "supersedes_id": None if pd.isna(p) else int(p),
+                "event_id": event.id,
+            }
+            for r, p in zip(fresh.itertuples(index=False), fresh_prev, strict=True)
+        ]
+        if rows:
+            session.execute(insert(NameDecision), rows)
+        # Findings over everything in force now: earlier decisions and this run.
+        kept = settled.assign(candidates=[[] for _ in range(len(settled))], reason="")
+        in_force = pd.concat(
+            [
+                kept[["written_name", "status", "tip_label", "stage", "score", "runner_up"]]
+                .assign(margin=kept["margin"], candidates=kept["candidates"], reason="")
+                .astype({"margin": float}),
+                result.drop(columns=["note", "canonical", "runner_up_score"]),
+            ],
+            ignore_index=True,
+        )
+        findings = match_findings(in_force, tips)
+        record_findings(session, event, findings)
+        report = _report(tree_set_id, event.id, names, tips, in_force, findings)
+        report.reused = len(settled)
+        report.new_decisions = len(rows)
+    return report
+
+
+def _report(
+    tree_set_id: int,
+    event_id: int,
+    names: list[str],
+    tips: list[str],
+    in_force: pd.DataFrame,
+    findings: list[Finding],
+) -> ReconcileReport:
+    status = in_force["status"].value_counts()
+    stages = in_force["stage"].value_counts()
+    accepted = in_force[in_force["status"] == "accepted"]
+    matched_names = set(accepted["written_name"])
+    used_tips = set(accepted["tip_label"])
+    return ReconcileReport(
+        tree_set_id=tree_set_id,
+        event_id=event_id,
+        written_names=len(names),
+        tips=len(tips),
+        reused=0,
+        new_decisions=0,
+        stages={s: int(stages.get(s, 0)) for s in [*STAGES, "review", "sheet"] if s in stages},
+        accepted=int(status.get("accepted", 0)),
+        pending=int(status.get("pending", 0)),
+        rejected=int(status.get("rejected", 0)),
+        findings=findings,
+        names_without_tip=sorted(n for n in names if n not in matched_names),
+        tips_without_data=sorted(t for t in tips if t not in used_tips),
+    )
+
+
+def _close_tips(label: str, tips: list[str]) -> str:
+    near = process.extract(label, tips, limit=3, score_cutoff=60)
+    return ", ".join(repr(t) for t, _, _ in near) or "none close"
+
+
+def check_decisions(
+    session: Session, tree_set_id: int, items: list[dict[str, Any]]
+) -> list[Problem]:
+    """Return every problem of a person's decisions (see
+    :func:`apply_decisions`): unknown written names, statuses and tips."""
+    tips = tip_labels_of_set(session, tree_set_id)
+    tip_set = set(tips)
+    current = current_decisions(session, tree_set_id)
+    known = set(written_names(session)) | set(current["written_name"])
+    problems: list[Problem] = []
+    for item in items:
+        name, status, tip = item["written_name"], item["status"], item.get("tip_label")
+        row = item.get("row")
+        if name not in known:
+            problems.append(
+                Problem(
+                    f"written name {name!r} is in no measurement and has no decision",
+                    row=row,
+                    field="written_name",
+                    value=name,
+                    hint="use the name exactly as it is written in the trait source",
+                )
+            )
+        if status not in STATUSES:
+            problems.append(
+                Problem(
+                    f"decision {status!r} is not one of {', '.join(STATUSES)}",
+                    row=row,
+                    field="status",
+                    value=status,
+                )
+            )
+        if status == "accepted" and tip not in tip_set:
+            problems.append(
+                Problem(
+                    f"tip {tip!r} for {name!r} is not in tree set {tree_set_id} "
+                    f"(close tips: {_close_tips(str(tip), tips)})",
+                    row=row,
+                    field="tip_label",
+                    value=tip,
+                    hint="give a tip label exactly as in the tree",
+                )
+            )
+    return problems
+
+
+def apply_decisions(
+    session: Session,
+    tree_set_id: int,
+    items: list[dict[str, Any]],
+    *,
+    action: str,
+    who: str | None = None,
+    source: str = "review",
+) -> DecisionResult:
+    """Validate and add a person's decisions in ``session``'s transaction,
+    with one ledger event ``action``.
+
+    Each item has ``written_name``, ``status`` (accepted, rejected or
+    pending), ``tip_label`` (required when accepted) and optional ``note``,
+    ``stage`` and ``row`` (the input row, for messages). Every item is
+    checked before anything is added.
+
+    Raises:
+        InputError: listing every problem (unknown status, tip or name).
+    """
+    problems = check_decisions(session, tree_set_id, items)
+    current = current_decisions(session, tree_set_id).set_index("written_name")
+    if problems:
+        raise InputError(
+            f"{len(problems)} problem(s) in the decisions; nothing was recorded",
+            problems=problems,
+        )
+    user = current_user(who)
+    event = record_event(
+        session,
+        action,
+        subject=f"tree set {tree_set_id}",
+        summary=f"{len(items)} name decision(s) by {user}",
+        parameters={"tree_set_id": tree_set_id, "count": len(items), "source": source},
+        who=user,
+    )
+    at = now()
+    ids: list[int] = []
+    superseded: list[int | None] = []
+    for item in items:
+        name = item["written_name"]
+        prev = current.loc[name] if name in current.index else None
+        prev_id = None if prev is None else int(prev["decision_id"])
+        candidates = candidates_of(prev["note"]) if prev is not None else []
+        tip = item.get("tip_label") if item["status"] == "accepted" else None
+        score = next((float(s) for t, s in candidates if t == tip), 100.0) if tip else 0.0
+        decision = NameDecision(
+            tree_set_id=tree_set_id,
+            written_name=name,
+            tip_label=tip,
+            status=item["status"],
+            stage=item.get("stage") or source,
+            score=item.get("score", score),
+            runner_up=item.get("runner_up"),
+            margin=item.get("margin"),
+            decided_by=user,
+            decided_at=at,
+            note=item.get("note") or "",
+            supersedes_id=prev_id,
+            event_id=event.id,
+        )
+        session.add(decision)
+        session.flush()
+        ids.append(decision.id)
+        superseded.append(prev_id)
+    return DecisionResult(event_id=event.id, decision_ids=ids, superseded_ids=superseded)
+
+
+def decide_name(
+    store: Store,
+    tree_set_id: int,
+    written_name: str,
+    tip_label: str | None,
+    status: str,
+    note: str = "",
+    who: str | None = None,
+) -> DecisionResult:
+    """Record a person's decision for ``written_name``: it supersedes the
+    decision in force (kept as history) with one ledger event
+    ``decide-name``.
+
+    Raises:
+        InputError: unknown status, a tip not in the tree set (the message
+            names close tips), or a written name the store does not hold;
+            nothing is recorded.
+        NotFoundError: no such tree set.
+    """
+    with store.transaction() as session:
+        return apply_decisions(
+            session,
+            tree_set_id,
+            [
+                {
+                    "written_name": written_name,
+                    "tip_label": tip_label,
+                    "status": status,
+                    "note": note,
+                }
+            ],
+            action="decide-name",
+            who=who,
+        )
+
+
+def decision_history(store: Store, tree_set_id: int, written_name: str) -> pd.DataFrame:
+    """Return every decision recorded for ``written_name`` in a tree set,
+    oldest first (the last one is in force).
+
+    Raises:
+        NotFoundError: the name has no decision.
+    """
+    with store.reading() as session:
+        rows = session.execute(
+            select(
+                NameDecision.id,
+                NameDecision.status,
+                NameDecision.tip_label,
+                NameDecision.stage,
+                NameDecision.score,
+                NameDecision.decided_by,
+                NameDecision.decided_at,
+                NameDecision.supersedes_id,
+                NameDecision.note,
+            )
+            .where(
+                NameDecision.tree_set_id == tree_set_id,
+                NameDecision.written_name == written_name,
+            )
+            .order_by(NameDecision.id)
+        ).all()
+    if not rows:
+        raise NotFoundError(
+            f"written name {written_name!r} has no decision for tree set {tree_set_id}",
+            field="written_name",
+            hint="run `tipledger reconcile-names` first",
+        )
+    return pd.DataFrame(
+        rows,
+        columns=[
+            "decision_id",
+            "status",
+            "tip_label",
+            "stage",
+            "score",
+            "decided_by",
+            "decided_at",
+            "supersedes_id",
+            "note",
+        ],
+    )

@@ -1,0 +1,278 @@
+"""Name decisions in the store: reconciling, reusing decisions across runs,
+revising them, review sheets and terminal review, on every backend."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from sqlalchemy import func, select
+from typer.testing import CliRunner
+
+from curation.cli import app
+from curation.errors import FormatError, InputError, NotFoundError
+from curation.names import (
+    decide_name,
+    decision_history,
+    export_review_sheet,
+    import_review_sheet,
+    pending_names,
+    reconcile_names,
+    summarise_names,
+)
+from curation.store import Store, current_decisions
+from curation.store.models import LedgerEvent, NameDecision, Source, StoredFinding, Synonym
+from curation.timestamps import now
+from tests.names_helpers import seed_store
+
+# The test tree:
+#
+#        +-- Aus_bus_V1
+#     +--+
+#     |  +-- Aus_alba
+#  ---+
+#     |  +-- Cus_dus
+#     +--+
+#     |  +-- Cus_dus_2
+#     |
+#     +-- Ius_jus
+#     +-- Lorenzia_occidentalis
+NEWICK = (
+    "((Aus_bus_V1:1,Aus_alba:1):1,(Cus_dus:1,Cus_dus_2:1):1,Ius_jus:2,Lorenzia_occidentalis:2);"
+)
+WRITTEN = [
+    "Aus bus",
+    "Aus bus",  # repeated rows of one name: one decision
+    "Aus albus",
+    "Cus dus",
+    "Ius jos",
+    "Old name",
+    "",
+    "Zzz qqq",
+]
+SYNONYMS = [("Old name", "Ius jus")]
+
+
+@pytest.fixture
+def tree_set(store: Store) -> int:
+    return seed_store(store, NEWICK, WRITTEN, SYNONYMS)
+
+
+def _counts(store: Store) -> tuple[int, int]:
+    with store.reading() as session:
+        decisions = session.scalar(select(func.count(NameDecision.id)))
+        events = session.scalar(select(func.count(LedgerEvent.id)))
+    return int(decisions or 0), int(events or 0)
+
+
+def _in_force(store: Store, tree_set: int) -> pd.DataFrame:
+    with store.reading() as session:
+        return current_decisions(session, tree_set).set_index("written_name")
+
+
+def test_reconcile_records_decisions_findings_and_one_event(store: Store, tree_set: int) -> None:
+    before = _counts(store)
+    report = reconcile_names(store, tree_set, who="ada")
+    after = _counts(store)
+    assert after[1] == before[1] + 1  # exactly one ledger event
+    assert after[0] - before[0] == report.new_decisions == 7
+    assert (report.accepted, report.pending, report.rejected) == (3, 4, 0)
+    assert report.stages["canonical"] == 2 and report.stages["synonym"] == 1
+    decided = _in_force(store, tree_set)
+    assert decided.loc["Aus bus", "tip_label"] == "Aus_bus_V1"
+    assert decided.loc["Aus albus", ["stage", "status"]].tolist() == ["gender", "accepted"]
+    assert decided.loc["Old name", "tip_label"] == "Ius_jus"
+    assert decided.loc["Cus dus", "status"] == "pending"
+    assert pd.isna(decided.loc["Cus dus", "tip_label"])
+    assert decided.loc["Aus bus", "decided_by"] == "ada"
+    assert report.names_without_tip == ["", "Cus dus", "Ius jos", "Zzz qqq"]
+    assert report.tips_without_data == ["Cus_dus", "Cus_dus_2", "Lorenzia_occidentalis"]
+    with store.reading() as session:
+        codes = set(
+            session.scalars(
+                select(StoredFinding.code).where(StoredFinding.event_id == report.event_id)
+            )
+        )
+    assert {"names.several_tips", "names.tip_collision", "names.unparseable"} <= codes
+    # The candidates of a pending name are kept where review reads them.
+    pending = pending_names(store, tree_set).set_index("written_name")
+    assert [c[0] for c in pending.loc["Cus dus", "candidates"]] == ["Cus_dus", "Cus_dus_2"]
+
+
+def test_decisions_are_reused_across_runs(store: Store, tree_set: int) -> None:
+    reconcile_names(store, tree_set)
+    decide_name(store, tree_set, "Ius jos", "Ius_jus", "accepted", "checked", who="bo")
+    count = _counts(store)[0]
+    again = reconcile_names(store, tree_set)
+    # Accepted names are kept; unchanged pending names get no new row.
+    assert again.new_decisions == 0 and _counts(store)[0] == count
+    assert again.reused == 4
+    assert _in_force(store, tree_set).loc["Ius jos", "decided_by"] == "bo"
+    assert "Ius jos" not in set(pending_names(store, tree_set)["written_name"])
+
+
+def test_revising_a_decision_keeps_the_old_one(store: Store, tree_set: int) -> None:
+    reconcile_names(store, tree_set)
+    first = _in_force(store, tree_set).loc["Aus bus", "decision_id"]
+    result = decide_name(store, tree_set, "Aus bus", None, "rejected", "not this taxon")
+    assert result.superseded_ids == [int(first)]
+    history = decision_history(store, tree_set, "Aus bus")
+    assert history["status"].tolist() == ["accepted", "rejected"]
+    assert history["supersedes_id"].iloc[1] == first
+    assert _in_force(store, tree_set).loc["Aus bus", "status"] == "rejected"
+
+
+def test_bad_decision_changes_nothing(store: Store, tree_set: int) -> None:
+    reconcile_names(store, tree_set)
+    before = _counts(store)
+    with pytest.raises(InputError) as caught:
+        decide_name(store, tree_set, "Ius jos", "Ius_jsu", "accepted")
+    assert "'Ius_jsu'" in caught.value.describe() and "Ius_jus" in caught.value.describe()
+    with pytest.raises(InputError, match="in no measurement"):
+        decide_name(store, tree_set, "Never written", "Ius_jus", "accepted")
+    assert _counts(store) == before
+
+
+def test_unknown_tree_set(store: Store) -> None:
+    with pytest.raises(NotFoundError, match="no tree set 99"):
+        reconcile_names(store, 99)
+
+
+def _fill(path: Path, decisions: dict[str, tuple[str, str]]) -> None:
+    sheet = pd.read_csv(path, dtype=str, keep_default_na=False)
+    for name, (decision, tip) in decisions.items():
+        sheet.loc[sheet["written_name"] == name, ["decision", "tip_label"]] = [decision, tip]
+    sheet.to_csv(path, index=False)
+
+
+def test_sheet_round_trip(store: Store, tree_set: int, tmp_path: Path) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "review.csv"
+    assert export_review_sheet(store, tree_set, path).rows == 4
+    _fill(path, {"Cus dus": ("2", ""), "Ius jos": ("accept", ""), "Zzz qqq": ("reject", "")})
+    result = import_review_sheet(store, tree_set, path, who="cy")
+    assert (result.accepted, result.rejected, result.left_pending) == (2, 1, 1)
+    decided = _in_force(store, tree_set)
+    assert decided.loc["Cus dus", "tip_label"] == "Cus_dus_2"
+    assert decided.loc["Ius jos", ["tip_label", "stage", "decided_by"]].tolist() == [
+        "Ius_jus",
+        "sheet",
+        "cy",
+    ]
+    assert decided.loc["Zzz qqq", "status"] == "rejected"
+    summary = summarise_names(store, tree_set)
+    assert (summary.accepted, summary.pending, summary.rejected) == (5, 1, 1)
+
+
+def test_sheet_with_problems_applies_nothing(store: Store, tree_set: int, tmp_path: Path) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "review.csv"
+    export_review_sheet(store, tree_set, path)
+    _fill(
+        path,
+        {
+            "Cus dus": ("accept", "Cus_duss"),  # unknown tip
+            "Ius jos": ("maybe", ""),  # malformed decision
+            "Zzz qqq": ("accept", ""),  # nothing to accept
+            "": ("reject", ""),  # fine on its own
+        },
+    )
+    before = _counts(store)
+    with pytest.raises(InputError) as caught:
+        import_review_sheet(store, tree_set, path)
+    text = caught.value.describe()
+    assert "3 problem(s)" in text and "nothing was applied" in text
+    assert "row 3" in text and "'Cus_duss'" in text  # Cus dus is the second data row
+    assert "'maybe'" in text and "no candidate to accept" in text
+    assert _counts(store) == before
+
+
+def test_sheet_missing_columns(store: Store, tree_set: int, tmp_path: Path) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "bad.csv"
+    path.write_text("written_name,choice\nCus dus,accept\n", encoding="utf-8")
+    before = _counts(store)
+    with pytest.raises(FormatError, match="lacks the column\\(s\\) 'decision', 'tip_label'"):
+        import_review_sheet(store, tree_set, path)
+    assert _counts(store) == before
+
+
+def test_terminal_review_through_the_command_line(
+    store: Store, store_url: str, tree_set: int
+) -> None:
+    reconcile_names(store, tree_set)
+    runner = CliRunner()
+    # Pending, in order: '' (no candidates), 'Cus dus', 'Ius jos', 'Zzz qqq'.
+    # Keys: reject ''; pick 2 for Cus dus; undo (back to Cus dus); type a tip
+    # with a typo (refused) then the right one; skip Ius jos; quit.
+    keys = "r\n2\nu\nt\nCus_duss\nt\nCus_dus\ns\nq\n"
+    result = runner.invoke(
+        app, ["review-names", "--tree-set", str(tree_set), "--store", store_url], input=keys
+    )
+    assert result.exit_code == 0, result.output
+    assert "Undone: 'Cus dus' is pending again." in result.output
+    assert "'Cus_duss' is not a tip" in result.output
+    decided = _in_force(store, tree_set)
+    assert decided.loc["", "status"] == "rejected"
+    assert decided.loc["Cus dus", "tip_label"] == "Cus_dus"
+    assert decided.loc["Ius jos", "status"] == "pending"
+    history = decision_history(store, tree_set, "Cus dus")
+    assert history["status"].tolist() == ["pending", "accepted", "pending", "accepted"]
+    assert history["tip_label"].tolist()[1::2] == ["Cus_dus_2", "Cus_dus"]
+    # Progress is kept: a second session starts with what is still pending.
+    again = runner.invoke(
+        app, ["review-names", "--tree-set", str(tree_set), "--store", store_url], input="q\n"
+    )
+    assert "[1/2] 'Ius jos'" in again.output
+
+
+def test_names_commands_run(store: Store, store_url: str, tree_set: int, tmp_path: Path) -> None:
+    runner = CliRunner()
+    base = ["--tree-set", str(tree_set), "--store", store_url]
+    ran = runner.invoke(app, ["reconcile-names", *base])
+    assert ran.exit_code == 0, ran.output
+    assert "accepted: 3" in ran.output
+    shown = runner.invoke(app, ["show-names", *base])
+    assert "pending: 4" in shown.output and "Tips without data (3)" in shown.output
+    sheet = tmp_path / "s.csv"
+    assert (
+        runner.invoke(app, ["export-review-sheet", *base[:2], str(sheet), *base[2:]]).exit_code == 0
+    )
+    assert (
+        "Wrote 4 pending names"
+        in runner.invoke(app, ["export-review-sheet", *base[:2], str(sheet), *base[2:]]).output
+    )
+    decided = runner.invoke(app, ["decide-name", *base, "Zzz qqq", "--reject"])
+    assert decided.exit_code == 0, decided.output
+    assert _in_force(store, tree_set).loc["Zzz qqq", "status"] == "rejected"
+
+
+def test_synonym_and_accepted_name_merge_under_one_tip(store: Store) -> None:
+    tree_set = seed_store(store, NEWICK, ["Old name", "Ius jus"], SYNONYMS)
+    report = reconcile_names(store, tree_set)
+    shared = [f for f in report.findings if f.code == "names.shared_tip"]
+    assert len(shared) == 1 and shared[0].subject == "Ius_jus"
+    assert shared[0].details["written_names"] == ["Ius jus", "Old name"]
+    assert shared[0].details["stages"] == ["canonical", "synonym"]
+    assert "merged" in shared[0].message
+
+
+def test_a_pending_name_is_matched_again_when_synonyms_arrive(store: Store) -> None:
+    tree_set = seed_store(store, NEWICK, ["Old name"])
+    reconcile_names(store, tree_set)
+    first = _in_force(store, tree_set).loc["Old name"]
+    assert (first["status"], first["stage"]) == ("pending", "unmatched")
+    with store.transaction() as session:
+        source = Source(
+            sha256="d" * 64, size_bytes=1, kind="synonym", format="csv", file_name="s.csv",
+            imported_at=now(),
+        )  # fmt: skip
+        session.add(source)
+        session.flush()
+        session.add(Synonym(source_id=source.id, synonym="Old name", accepted="Ius jus"))
+    again = reconcile_names(store, tree_set)
+    assert again.new_decisions == 1
+    history = decision_history(store, tree_set, "Old name")
+    assert history["stage"].tolist() == ["unmatched", "synonym"]
+    assert history["supersedes_id"].iloc[1] == first["decision_id"]
