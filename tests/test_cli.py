@@ -57,11 +57,3 @@ def test_create_then_show_store(tmp_path: Path) -> None:
     shown = run_cli("show-store", "--store", store)
     assert shown.returncode == 0, shown.stderr
     assert "ledger events: 0" in shown.stdout
-
-
-def test_demo_builds_a_store(tmp_path: Path) -> None:
-    result = run_cli("demo", "--folder", str(tmp_path / "out"))
-    assert result.returncode == 0, result.stderr
-    assert (tmp_path / "out" / "tipledger.db").exists()
-    # The store the demo made opens as a current tipledger store.
-    assert run_cli("show-store", "--store", str(tmp_path / "out" / "tipledger.db")).returncode == 0

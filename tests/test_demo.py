@@ -578,6 +578,9 @@ def test_demo_runs_end_to_end_and_again(tmp_path: Path) -> None:
     assert "Demo steps" in first.stdout and "Traceback" not in first.stderr
     assert (tmp_path / "out" / "tipledger.db").is_file()
     assert (tmp_path / "out" / "samples" / "tree.nex").is_file()
+    # The store the demo made opens as a current tipledger store.
+    shown = run_cli("show-store", "--store", "out/tipledger.db", cwd=tmp_path)
+    assert shown.returncode == 0, shown.stderr
     # A second run in the same folder reuses the store.
     second = run_cli("demo", "--folder", "out", cwd=tmp_path)
     assert second.returncode == 0, second.stdout + second.stderr
@@ -609,10 +612,12 @@ def test_demo_pipeline_on_each_backend(store_url: str, tmp_path: Path) -> None:
     truth = json.loads(files.truth_trees.read_text(encoding="utf-8"))["posterior"]
     counts = report.summary
     if status["import trees"].status == "done":
-        # One dated tree, and the posterior sample without its burn-in.
+        # One dated tree, the posterior sample without its burn-in, and the
+        # two derived sets of one tree each that the repair step makes.
         kept = truth["trees"] - truth["burn_in"]
-        assert (counts.tree_sets, counts.trees) == (2, 1 + kept)
-        assert counts.tips == 200 * (1 + kept)
+        repaired = 2 if status["repair tree"].status == "done" else 0
+        assert (counts.tree_sets, counts.trees) == (2 + repaired, 1 + kept + repaired)
+        assert counts.tips == 200 * (1 + kept + repaired)
     else:
         assert counts.trees == 0
     if status["import synonyms"].status == "done":

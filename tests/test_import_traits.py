@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import csv
 import io
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +22,7 @@ from curation.formats.tables import detect_delimiter, read_table
 from curation.imports.common import SourceInfo
 from curation.imports.measurements import parse_values
 from curation.imports.traits import import_traits, resolve_columns, split_unit
-from curation.store import Store
+from curation.store import Store, open_store
 from curation.store.models import Base, LedgerEvent, Measurement, Source, TraitSource
 
 
@@ -453,3 +455,45 @@ def test_failure_after_registering_rolls_back(store: Store, tmp_path: Path) -> N
     with pytest.raises(InputError, match="--unit names 'wingspan'"):
         import_traits(store, path, units={"wingspan": "mm"})
     assert table_counts(store) == before
+
+
+# --- the command ----------------------------------------------------------------------
+
+
+def run_cli(*args: str) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m curation`` in a real process, as a user would."""
+    return subprocess.run(
+        [sys.executable, "-m", "curation", *args], capture_output=True, text=True, check=False
+    )
+
+
+def test_import_traits_command(tmp_path: Path) -> None:
+    store = str(tmp_path / "lab.db")
+    assert run_cli("create-store", "--store", store).returncode == 0
+    rows = [["Art", "Masse", "Flügel (mm)"], ["Pterella alba", "1,5", "40"]]
+    path = write_csv(tmp_path / "t.csv", rows, delimiter=";", encoding="cp1252")
+    result = run_cli(
+        "import-traits", str(path), "--store", store, "--decimal", ",",
+        "--columns", "taxon=Art", "--unit", "Masse=g", "--label", "field sheet",
+    )  # fmt: skip
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert "measurements: 2" in result.stdout and "ok: 2" in result.stdout
+    with open_store(store) as opened:
+        frame = stored(opened)
+    assert dict(zip(frame["trait"], frame["unit"], strict=True)) == {"Masse": "g", "Flügel": "mm"}
+    assert list(frame["value_number"]) == [1.5, 40.0]
+    again = run_cli("import-traits", str(path), "--store", store, "--decimal", ",")
+    assert again.returncode == 2
+    assert "already in the store" in again.stdout + again.stderr
+    assert "Traceback" not in again.stdout + again.stderr
+
+
+def test_import_traits_command_bad_input(tmp_path: Path) -> None:
+    store = str(tmp_path / "lab.db")
+    run_cli("create-store", "--store", store)
+    path = write_csv(tmp_path / "t.csv", [["Plant", "mass"], ["A b", "1"]])
+    result = run_cli("import-traits", str(path), "--store", store, "--columns", "taxon")
+    assert result.returncode == 2 and "KEY=VALUE" in result.stdout + result.stderr
+    result = run_cli("import-traits", str(path), "--store", store)
+    output = result.stdout + result.stderr
+    assert result.returncode == 2 and "--columns taxon=" in output and "Traceback" not in output

@@ -503,6 +503,38 @@ def test_nexus_rooting_written_before_the_equals_sign(store: Store, tmp_path: Pa
     assert trees[0][0].newick == "[&R] (A:1,B:1);"
 
 
+LINKED_NEXUS = """[Written by a database: a comment before #NEXUS]
+#NEXUS
+BEGIN TAXA; TITLE Genera; DIMENSIONS NTAX=2; TAXLABELS Ardelia Brenna; END;
+BEGIN TAXA; TITLE Species; DIMENSIONS NTAX=3;
+  TAXLABELS Ardelia_minor Ardelia_major Brenna_alta; END;
+BEGIN TREES; TITLE GenusTree; LINK TAXA = Genera;
+  TREE g = [&R] (Ardelia:1,Brenna:1);
+END;
+BEGIN TREES; TITLE SpeciesTree; LINK TAXA = Species;
+  TREE s = [&R] ((Ardelia_minor:1,Ardelia_major:1):1,Brenna_alta:2);
+END;
+"""
+
+
+def test_nexus_tree_blocks_linked_to_titled_taxa_blocks(tmp_path: Path) -> None:
+    # Several TAXA blocks told apart by TITLE, each TREES block naming its
+    # own by LINK TAXA = title (the way Mesquite writes NEXUS; common
+    # practice rather than the 1997 description).
+    path = write(tmp_path, "linked.nex", LINKED_NEXUS)
+    assert guess_tree_format(path, path.read_bytes()) == "nexus"
+    contents = read_tree_file(path)
+    assert [t.arrays.tip_labels for t in contents.trees] == [
+        ["Ardelia", "Brenna"],
+        ["Ardelia_minor", "Ardelia_major", "Brenna_alta"],
+    ]
+    wrong = LINKED_NEXUS.replace("LINK TAXA = Species", "LINK TAXA = Specimens")
+    with pytest.raises(FormatError, match="LINK TAXA names 'Specimens'") as info:
+        read_tree_file(write(tmp_path, "wrong.nex", wrong))
+    assert info.value.line == 9
+    assert "(titles: 'Genera', 'Species')" in info.value.message
+
+
 def test_nexus_without_taxa_block_and_several_tree_blocks(tmp_path: Path) -> None:
     text = (
         "#NEXUS\nBEGIN TREES;\n TREE first = (a:1,b:1);\nEND;\n"

@@ -86,3 +86,30 @@ def test_ledger_records_who_and_when(store: Store, monkeypatch: pytest.MonkeyPat
     # 1700000000 s after the epoch is 2023-11-14T22:13:20Z (checked with
     # `date -u -d @1700000000`, GNU coreutils).
     assert event.at.replace(tzinfo=None).isoformat() == "2023-11-14T22:13:20"
+
+
+def test_json_columns_hold_no_nan_on_any_backend(store: Store) -> None:
+    # PostgreSQL's JSON type refuses NaN (RFC 8259 has no NaN); the ledger
+    # stores it as null on every backend, and NumPy scalars as numbers.
+    import math
+
+    import numpy as np
+
+    from curation.findings import Finding, Severity
+    from curation.store.ledger import record_event, record_findings
+    from curation.store.models import StoredFinding
+
+    with store.transaction() as session:
+        event = record_event(session, "check", parameters={"x": math.nan, "n": np.int64(3)})
+        finding = Finding(
+            code="test.nan",
+            severity=Severity.info,
+            subject="s",
+            message="m",
+            details={"z": float("inf"), "ids": (1, 2)},
+        )
+        record_findings(session, event, [finding])
+    with store.reading() as session:
+        stored = session.scalars(select(StoredFinding)).one()
+        assert stored.details == {"z": None, "ids": [1, 2]}
+        assert session.get(type(event), event.id).parameters == {"x": None, "n": 3}

@@ -11,7 +11,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
-import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from sqlalchemy import select
@@ -188,34 +187,20 @@ def _reviews_in_force(session: Any) -> pd.DataFrame:
     return frame.drop_duplicates("measurement_id", keep="last").reset_index(drop=True)
 
 
-def _fallback_species(measurements: pd.DataFrame) -> pd.DataFrame:
-    """Species values straight from the numbers as written, for a store
-    whose traits stage has not run: pooled raw means of the usable values.
-    """
-    used = measurements[measurements["used"]]
-    grouped = used.groupby(["tip_label", "trait"], sort=True)["value_number"]
-    frame = grouped.agg(n="count", mean="mean", sd="std", median="median").reset_index()
-    frame["se"] = frame["sd"] / np.sqrt(frame["n"])
-    ids = used.groupby(["tip_label", "trait"], sort=True)["measurement_id"].agg(list)
-    frame["measurement_ids"] = ids.to_numpy() if len(frame) else []
-    frame["kind"] = "continuous"
-    frame["scale"] = "raw"
-    units = used.groupby("trait")["unit"].agg(
-        lambda u: u.dropna().iloc[0] if u.notna().any() else ""
-    )
-    frame["unit"] = frame["trait"].map(units).fillna("")
-    frame["state"] = None
-    return frame
-
-
-def _species_table(
+def _curated(
     store: Store, decision_set_id: int, options: BundleOptions, measurements: pd.DataFrame
-) -> pd.DataFrame:
-    try:
-        from curation.traits import species_values
-    except ImportError:  # the traits stage is not installed in this build
-        return _fallback_species(measurements)
-    return species_values(store, decision_set_id, traits=options.traits, policy=options.policy)
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Species values by the traits stage, and the measurements with their
+    converted value, flags and whether they count."""
+    from curation.traits import aggregate_species, measurements_frame
+
+    frame = measurements_frame(store, decision_set_id)
+    species = aggregate_species(frame, traits=options.traits, policy=options.policy)
+    curated = frame.set_index("id")[["value", "target", "factor", "flags", "excluded", "exclusion"]]
+    curated = curated.rename(columns={"target": "target_unit", "excluded": "not_counted"})
+    joined = measurements.join(curated, on="measurement_id")
+    joined["used"] = ~joined["not_counted"].fillna(True).astype(bool)
+    return species, joined.drop(columns=["not_counted"])
 
 
 def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
@@ -298,13 +283,7 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
         accepted = names[names["status"] == "accepted"].set_index("written_name")["tip_label"]
         measurements["tip_label"] = measurements["written_name"].map(accepted)
         excluded = set(reviews.loc[reviews["action"] == "exclude", "measurement_id"])
-        measurements["excluded"] = measurements["measurement_id"].isin(excluded)
-        measurements["used"] = (
-            measurements["tip_label"].notna()
-            & (measurements["status"] == "ok")
-            & ~measurements["excluded"]
-            & measurements["value_number"].notna()
-        )
+        measurements["curator_excluded"] = measurements["measurement_id"].isin(excluded)
         tree_source_ids = {
             sid
             for sid in session.scalars(
@@ -356,9 +335,7 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
             "derived_from_id": tree_set.derived_from_id,
             "tree_count": tree_set.tree_count,
         }
-    species = _species_table(store, original.id, options, measurements)
-    if options.traits:
-        species = species[species["trait"].isin(options.traits)]
+    species, measurements = _curated(store, original.id, options, measurements)
     return BundleInputs(
         options=options,
         store_url=store.display_url(),

@@ -7,7 +7,6 @@ so the page makes no network request and is the same bytes on every run.
 from __future__ import annotations
 
 import html
-import json
 from typing import Any
 
 import numpy as np
@@ -178,21 +177,6 @@ def _table(frame: pd.DataFrame, limit: int = 300) -> str:
     return f"<table><tr>{head}</tr>{''.join(rows)}</table>{more}"
 
 
-def _flagged_ids(findings: pd.DataFrame) -> set[int]:
-    ids: set[int] = set()
-    for details in findings.get("details", []):
-        data = json.loads(details) if isinstance(details, str) else details
-        if not isinstance(data, dict):
-            continue
-        for key in ("measurement_ids", "measurement_id"):
-            value = data.get(key)
-            if isinstance(value, list):
-                ids.update(int(v) for v in value if isinstance(v, (int, float)))
-            elif isinstance(value, (int, float)):
-                ids.add(int(value))
-    return ids
-
-
 def render_report(
     inputs: BundleInputs,
     tables: BundleTables,
@@ -257,9 +241,9 @@ def render_report(
     if len(trees) > 1:
         sections.append(f"<p>The bundle holds {len(trees)} trees; the first is drawn.</p>")
     sections.append("<h2>Trait distributions</h2>")
-    flagged = _flagged_ids(tables.findings)
     measured = tables.measurements
-    value_column = "value" if "value" in measured else "value_number"
+    flagged = set(measured.loc[measured["flags"].fillna("") != "", "measurement_id"])
+    value_column = "value"
     for row in tables.traits.itertuples(index=False):
         if row.kind == "discrete":
             continue

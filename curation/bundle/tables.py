@@ -87,26 +87,34 @@ def _wide_species(species: pd.DataFrame, traits: pd.DataFrame, keep: list[str]) 
 
 def finding_actions(inputs: BundleInputs, findings: pd.DataFrame) -> pd.Series:
     """Return, per finding, what was done about it in this bundle: a repair
-    that addresses it, the name decision it led to, or that it was reported
-    and the data used as they are."""
+    that addresses it, the name decisions it led to, whether a flagged
+    measurement was left out of the species values, or that it was
+    reported and the data used as they are."""
     repairs = {r["repair"] for r in inputs.repairs}
-    excluded = set(
-        inputs.exclusions.loc[inputs.exclusions["action"] == "exclude", "measurement_id"]
-    )
+    m = inputs.measurements
+    counted = set(m.loc[m["used"], "measurement_id"])
+    by_curator = set(m.loc[m["curator_excluded"], "measurement_id"])
     actions = []
     for code, details in zip(findings["code"], findings["details"], strict=True):
+        details = details if isinstance(details, dict) else {}
         fixed_by = sorted(REPAIR_ADDRESSES.get(code, set()) & repairs)
-        ids = details.get("measurement_ids") if isinstance(details, dict) else None
+        ids = details.get("measurement_ids") or (
+            [details["measurement_id"]] if "measurement_id" in details else []
+        )
         if fixed_by:
             actions.append("repaired: " + ", ".join(fixed_by))
         elif code.startswith("names."):
             actions.append("see the name decisions (names.csv)")
-        elif ids and set(ids) & excluded:
+        elif ids and set(ids) & by_curator:
             actions.append("measurement excluded by a curator")
+        elif ids and not set(ids) & counted:
+            actions.append("left out of the species values")
+        elif ids:
+            actions.append("kept in the species values")
         elif code.startswith("tree."):
             actions.append("reported; tree used as stored")
         else:
-            actions.append("reported; values used as flagged (see measurements_used.csv)")
+            actions.append("reported")
     return pd.Series(actions, index=findings.index, dtype=object)
 
 
@@ -225,7 +233,12 @@ def _measurements_table(inputs: BundleInputs, keep: set[str], traits: set[str]) 
         "life_stage",
         "status",
         "reason",
-        "excluded",
+        "value",
+        "target_unit",
+        "factor",
+        "flags",
+        "exclusion",
+        "curator_excluded",
         "in_species_value",
     ]
     return m[columns].sort_values(["tip_label", "trait", "measurement_id"]).reset_index(drop=True)

@@ -28,18 +28,24 @@ __all__ = ["app", "main"]
 def main() -> None:
     """Run the command line; exit 2 with a clear message on bad input."""
     try:
-        app(standalone_mode=False)
+        # Not standalone, so that our own errors reach the handler below; a
+        # command's ``Exit(code)`` then comes back as its return value.
+        result = app(standalone_mode=False)
     except TipledgerError as exc:
         console.print(f"Error: {exc.describe()}", markup=False, style="bold red")
         sys.exit(2)
     except SystemExit:
         raise
-    except Exception as exc:  # click's own usage errors
-        from click.exceptions import ClickException, Exit
-
-        if isinstance(exc, Exit):
-            sys.exit(exc.exit_code)
-        if isinstance(exc, ClickException):
-            exc.show()
-            sys.exit(exc.exit_code)
+    except Exception as exc:
+        # The command-line parser's own usage errors (wrong option, missing
+        # argument) know how to show themselves and their exit status.
+        show = getattr(exc, "show", None)
+        code = getattr(exc, "exit_code", None)
+        if callable(show) and isinstance(code, int):
+            show()
+            sys.exit(code)
+        if isinstance(code, int):
+            sys.exit(code)
         raise
+    if isinstance(result, int) and result:
+        sys.exit(result)

@@ -234,13 +234,34 @@ def _step_diagnose_traits(context: DemoContext) -> str:
     return f"{len(found)} trait diagnostics"
 
 
+def _step_repair_tree(context: DemoContext) -> str:
+    make_ultrametric = _function("curation.trees", "make_ultrametric")
+    lengthen_zero_tips = _function("curation.trees", "lengthen_zero_tips")
+    # Opt-in repairs, each a derived tree set and a ledger event: first the
+    # rounding-level deviation, then the zero-length tips that would make
+    # the Brownian covariance singular.
+    level = make_ultrametric(context.store, _need(context, "tree_set"), who=DEMO_USER)
+    lengthened = lengthen_zero_tips(context.store, level.id, length=0.01, who=DEMO_USER)
+    with context.store.reading() as session:
+        tree_id = session.scalar(select(Tree.id).where(Tree.tree_set_id == lengthened.id))
+    context.results["repaired_tree"] = int(tree_id)
+    return f"made ultrametric (set {level.id}), zero-length tips lengthened (set {lengthened.id})"
+
+
 def _step_make_bundle(context: DemoContext) -> str:
     make_bundle = _function("curation.bundle", "make_bundle")
+    options_type = _function("curation.bundle", "BundleOptions")
+    verify_bundle = _function("curation.bundle", "verify_bundle")
     target = context.folder / "bundle"
-    result = make_bundle(
-        context.store, target, tree_set_id=_need(context, "tree_set"), who=DEMO_USER
+    tree = context.results.get("repaired_tree") or _need(context, "tree")
+    options = options_type(tree_id=tree, make_zip=True, permutations=999, seed=1)
+    result = make_bundle(context.store, target, options, replace=True, who=DEMO_USER)
+    report = verify_bundle(target)
+    verdict = "verifies" if report.ok else f"{len(report.problems)} problems"
+    return (
+        f"bundle in {target} ({result.tips} tips, {len(result.traits)} traits, "
+        f"{result.tips_pruned} tips pruned): {verdict}"
     )
-    return f"bundle in {target}: {_describe(result)}"
 
 
 def _need(context: DemoContext, key: str) -> Any:
@@ -286,6 +307,7 @@ DEMO_STEPS: list[tuple[str, Callable[[DemoContext], str]]] = [
     ("flag measurements", _step_flag_measurements),
     ("species values", _step_species_values),
     ("diagnose traits", _step_diagnose_traits),
+    ("repair tree", _step_repair_tree),
     ("make bundle", _step_make_bundle),
 ]
 

@@ -50,6 +50,8 @@ class NexusTree:
         translate: the TRANSLATE table of the tree's block (token -> name).
         comments: the comments written between TREE and '=' (such as
             [&lnP=-1234.5] or [&R]), as written.
+        taxa: the TAXLABELS of the TAXA block the tree's block refers to
+            (by ``LINK TAXA = title;``, else the last one before it).
     """
 
     index: int
@@ -59,6 +61,7 @@ class NexusTree:
     rooted: bool | None
     translate: dict[str, str] = field(repr=False)
     comments: tuple[str, ...] = ()
+    taxa: list[str] = field(default_factory=list, repr=False)
 
 
 @dataclass
@@ -66,7 +69,8 @@ class NexusFile:
     """What a NEXUS file says about trees.
 
     Attributes:
-        taxa: TAXLABELS of the TAXA block, in order (empty without one).
+        taxa: TAXLABELS of the last TAXA block, in order (empty without one);
+            each tree carries those of the block it refers to.
         trees: every TREE command, in file order.
         problems: problems that do not stop the reading (a duplicated
             TRANSLATE token, NTAX not matching TAXLABELS ...).
@@ -222,10 +226,22 @@ def _block_commands(scanner: _Scanner, block: str, begin: int) -> Iterator[_Toke
         yield token
 
 
-def _read_taxa(scanner: _Scanner, begin: int, problems: list[Problem]) -> list[str]:
+def _read_title(scanner: _Scanner, command: _Token) -> str:
+    """Read the rest of ``TITLE name;`` and return the name."""
+    name = scanner.token()
+    if name is None or name.kind == "punct":
+        raise scanner.error("expected a name after TITLE", command.start, "write TITLE name;")
+    scanner.expect_semicolon(f"TITLE {name.value}", name.start)
+    return name.value
+
+
+def _read_taxa(
+    scanner: _Scanner, begin: int, problems: list[Problem]
+) -> tuple[list[str], str | None]:
     labels: list[str] = []
     ntax: tuple[int, int] | None = None
     taxlabels_at = begin
+    title: str | None = None
     for command in _block_commands(scanner, "TAXA", begin):
         if command.is_keyword("DIMENSIONS"):
             while (token := scanner.token()) is not None and not (
@@ -244,6 +260,8 @@ def _read_taxa(scanner: _Scanner, begin: int, problems: list[Problem]) -> list[s
                 raise scanner.error(
                     "the DIMENSIONS command is not ended by ';'", command.start, "end it with ';'"
                 )
+        elif command.is_keyword("TITLE"):
+            title = _read_title(scanner, command)
         elif command.is_keyword("TAXLABELS"):
             taxlabels_at = command.start
             seen: dict[str, int] = {}
@@ -282,7 +300,7 @@ def _read_taxa(scanner: _Scanner, begin: int, problems: list[Problem]) -> list[s
                 "make NTAX equal the number of taxon names",
             )
         )
-    return labels
+    return labels, title
 
 
 def _read_translate(scanner: _Scanner, start: int, problems: list[Problem]) -> dict[str, str]:
@@ -339,12 +357,47 @@ def _read_translate(scanner: _Scanner, start: int, problems: list[Problem]) -> d
             )
 
 
+def _read_link(
+    scanner: _Scanner, command: _Token, taxa_blocks: dict[str, tuple[str, list[str]]]
+) -> list[str]:
+    """Read ``LINK TAXA = title;`` (Mesquite's way of naming the TAXA block
+    a block refers to) and return that block's taxa."""
+    what, equals, name = scanner.token(), scanner.token(), scanner.token()
+    if (
+        what is None
+        or equals is None
+        or name is None
+        or equals.value != "="
+        or name.kind == "punct"
+    ):
+        raise scanner.error("expected LINK TAXA = title;", command.start, "write LINK TAXA = name;")
+    scanner.expect_semicolon(f"LINK {what.value} = {name.value}", name.start)
+    if not what.is_keyword("TAXA"):
+        return []
+    linked = taxa_blocks.get(name.value.upper())
+    if linked is None:
+        known = ", ".join(repr(title) for title, _ in taxa_blocks.values()) or "none"
+        raise scanner.error(
+            f"LINK TAXA names {name.value!r}, but no TAXA block has that TITLE (titles: {known})",
+            name.start,
+            "give the TAXA block that TITLE, or correct the LINK",
+        )
+    return linked[1]
+
+
 def _read_trees(
-    scanner: _Scanner, begin: int, trees: list[NexusTree], problems: list[Problem]
+    scanner: _Scanner,
+    begin: int,
+    trees: list[NexusTree],
+    problems: list[Problem],
+    taxa: list[str],
+    taxa_blocks: dict[str, tuple[str, list[str]]],
 ) -> None:
     translate: dict[str, str] = {}
     for command in _block_commands(scanner, "TREES", begin):
-        if command.is_keyword("TRANSLATE"):
+        if command.is_keyword("LINK"):
+            taxa = _read_link(scanner, command, taxa_blocks) or taxa
+        elif command.is_keyword("TRANSLATE"):
             translate = _read_translate(scanner, command.start, problems)
         elif command.is_keyword("TREE", "UTREE"):
             scanner.comments = []
@@ -381,6 +434,7 @@ def _read_trees(
                     offset=start,
                     rooted=rooted,
                     translate=translate,
+                    taxa=taxa,
                     comments=tuple(scanner.comments),
                 )
             )
@@ -412,6 +466,8 @@ def read_nexus(text: str, *, file: str | None = None) -> NexusFile:
             "check the file, or give --format newick or --format nexml",
         )
     taxa: list[str] = []
+    # TAXA blocks by TITLE in upper case: (the title as written, the taxa).
+    taxa_blocks: dict[str, tuple[str, list[str]]] = {}
     trees: list[NexusTree] = []
     problems: list[Problem] = []
     while (token := scanner.token()) is not None:
@@ -427,9 +483,11 @@ def read_nexus(text: str, *, file: str | None = None) -> NexusFile:
         scanner.expect_semicolon(f"BEGIN {name.value}", name.start)
         block = name.value.upper()
         if block == "TAXA":
-            taxa = _read_taxa(scanner, token.start, problems)
+            taxa, title = _read_taxa(scanner, token.start, problems)
+            if title is not None:
+                taxa_blocks[title.upper()] = (title, taxa)
         elif block == "TREES":
-            _read_trees(scanner, token.start, trees, problems)
+            _read_trees(scanner, token.start, trees, problems, taxa, taxa_blocks)
         else:
             for command in _block_commands(scanner, name.value, token.start):
                 scanner.command_end(command.start, command.value)

@@ -9,6 +9,9 @@ from curation.imports.common import (
     register_source,
     sha256_of,
 )
+from curation.imports.dwca import import_darwin_core
+from curation.imports.synonyms import import_synonyms
+from curation.imports.traits import import_traits
 from curation.imports.trees import (
     TreeFileContents,
     TreeImportResult,
@@ -21,6 +24,9 @@ __all__ = [
     "SourceInfo",
     "TreeFileContents",
     "TreeImportResult",
+    "import_darwin_core",
+    "import_synonyms",
+    "import_traits",
     "import_trees",
     "read_source_bytes",
     "read_tree_file",

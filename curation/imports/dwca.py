@@ -248,12 +248,8 @@ def import_darwin_core(
         ConflictError: the same file (sha256) is already stored.
     """
     data = read_source_bytes(path)
-    archive = read_archive(data, file_name=Path(path).name)
-    measurements, described = measurements_from_archive(archive, decimal=decimal)
     with store.transaction() as session:
-        kinds = {
-            n: k for n, k in session.execute(select(TraitDefinition.name, TraitDefinition.kind))
-        }
+        # Registering first refuses a file already stored before any parsing.
         source, event = register_source(
             session,
             path,
@@ -261,9 +257,16 @@ def import_darwin_core(
             kind="trait",
             format="dwca",
             info=info,
-            options={"decimal": decimal, "priority": priority, "core": archive.core.row_type},
+            options={"decimal": decimal, "priority": priority},
             who=who,
         )
+        archive = read_archive(data, file_name=Path(path).name)
+        measurements, described = measurements_from_archive(archive, decimal=decimal)
+        kinds = {
+            n: k for n, k in session.execute(select(TraitDefinition.name, TraitDefinition.kind))
+        }
+        source.options = {**source.options, "core": archive.core.row_type}
+        event.parameters = {**event.parameters, "core": archive.core.row_type}
         trait_source = TraitSource(
             source_id=source.id,
             name=source.label,

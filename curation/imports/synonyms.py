@@ -352,52 +352,58 @@ def import_synonyms(
             hint="give --layout pairs or --layout checklist, or leave it out to guess",
         )
     data = read_source_bytes(path)
-    name = Path(path).name
-    if is_archive(data):
-        archive = read_archive(data, file_name=name)
-        if archive.core.row_type != TAXON:
-            raise FormatError(
-                f"the core of {name!r} has rowType {archive.core.row_type!r}; synonyms are "
-                f"read from a Taxon core ({TAXON})",
-                file=name,
-                field="rowType",
-                hint="give a checklist archive (Taxon core), or a table of synonym pairs",
-            )
-        frame = archive.core.frame.copy()
-        if "taxonID" not in frame.columns and "_id" in frame.columns:
-            frame["taxonID"] = frame["_id"]
-        numbers = list(archive.core.row_numbers)
-        file_format, used_layout = "dwca", "checklist"
-        read_options: dict[str, object] = {}
-    else:
-        table = read_table(
-            data, file_name=name, delimiter=delimiter, encoding=encoding, sheet=sheet
-        )
-        frame, numbers = table.frame, list(table.row_numbers)
-        file_format = table.format
-        lowered = {c.lower() for c in table.columns}
-        looks_checklist = all(t.lower() in lowered for t in CHECKLIST_TERMS[:3])
-        used_layout = layout or ("checklist" if looks_checklist else "pairs")
-        read_options = {
-            "encoding": table.encoding,
-            "delimiter": table.delimiter,
-            "sheet": table.sheet,
-        }
-    if used_layout == "checklist":
-        synonyms = synonyms_from_checklist(frame, numbers, file_name=name)
-    else:
-        synonyms = synonyms_from_pairs(frame, numbers, columns=columns, file_name=name)
     with store.transaction() as session:
+        # Registering first refuses a file already stored before any parsing;
+        # the format and options are completed once the file is read.
         source, event = register_source(
             session,
             path,
             data,
             kind="synonym",
-            format=file_format,
+            format="table",
             info=info,
-            options={"layout": used_layout, "columns": dict(columns or {}), **read_options},
+            options={"layout": layout, "columns": dict(columns or {})},
             who=who,
         )
+        name = Path(path).name
+        if is_archive(data):
+            archive = read_archive(data, file_name=name)
+            if archive.core.row_type != TAXON:
+                raise FormatError(
+                    f"the core of {name!r} has rowType {archive.core.row_type!r}; synonyms are "
+                    f"read from a Taxon core ({TAXON})",
+                    file=name,
+                    field="rowType",
+                    hint="give a checklist archive (Taxon core), or a table of synonym pairs",
+                )
+            frame = archive.core.frame.copy()
+            if "taxonID" not in frame.columns and "_id" in frame.columns:
+                frame["taxonID"] = frame["_id"]
+            numbers = list(archive.core.row_numbers)
+            file_format, used_layout = "dwca", "checklist"
+            read_options: dict[str, object] = {}
+        else:
+            table = read_table(
+                data, file_name=name, delimiter=delimiter, encoding=encoding, sheet=sheet
+            )
+            frame, numbers = table.frame, list(table.row_numbers)
+            file_format = table.format
+            lowered = {c.lower() for c in table.columns}
+            looks_checklist = all(t.lower() in lowered for t in CHECKLIST_TERMS[:3])
+            used_layout = layout or ("checklist" if looks_checklist else "pairs")
+            read_options = {
+                "encoding": table.encoding,
+                "delimiter": table.delimiter,
+                "sheet": table.sheet,
+            }
+        if used_layout == "checklist":
+            synonyms = synonyms_from_checklist(frame, numbers, file_name=name)
+        else:
+            synonyms = synonyms_from_pairs(frame, numbers, columns=columns, file_name=name)
+        options = {"layout": used_layout, "columns": dict(columns or {}), **read_options}
+        source.format = file_format
+        source.options = options
+        event.parameters = {**event.parameters, "format": file_format, **options}
         records = synonyms.assign(source_id=source.id).astype(object)
         records = records.where(records.notna(), None).to_dict("records")
         chunk = 20_000

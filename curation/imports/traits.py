@@ -517,10 +517,22 @@ def import_traits(
         ConflictError: the same file (sha256) is already stored.
     """
     data = read_source_bytes(path)
-    table = read_table(
-        data, file_name=Path(path).name, delimiter=delimiter, encoding=encoding, sheet=sheet
-    )
     with store.transaction() as session:
+        # Registering first refuses a file already stored before any parsing;
+        # the format and options are completed once the file is read.
+        source, event = register_source(
+            session,
+            path,
+            data,
+            kind="trait",
+            format="table",
+            info=info,
+            options={"layout": layout, "priority": priority},
+            who=who,
+        )
+        table = read_table(
+            data, file_name=Path(path).name, delimiter=delimiter, encoding=encoding, sheet=sheet
+        )
         definitions = {
             name: kind
             for name, kind in session.execute(select(TraitDefinition.name, TraitDefinition.kind))
@@ -547,16 +559,9 @@ def import_traits(
             "units": dict(units or {}),
             "priority": priority,
         }
-        source, event = register_source(
-            session,
-            path,
-            data,
-            kind="trait",
-            format=table.format,
-            info=info,
-            options=options,
-            who=who,
-        )
+        source.format = table.format
+        source.options = options
+        event.parameters = {**event.parameters, "format": table.format, **options}
         trait_source = TraitSource(
             source_id=source.id,
             name=source.label,

@@ -107,6 +107,13 @@ def guess_tree_format(path: str | os.PathLike[str], data: bytes) -> str:
         FormatError: neither the content nor the name tells.
     """
     head = data[:4000].lstrip(b"\xef\xbb\xbf").lstrip()
+    while head.startswith(b"[") and b"]" in head:
+        # A comment before #NEXUS, as some databases write (a NEXUS file
+        # should begin with #NEXUS, but the reader steps over comments).
+        after = head[head.index(b"]") + 1 :].lstrip()
+        if not after.upper().startswith((b"#NEXUS", b"[")):
+            break
+        head = after
     if head[:6].upper() == b"#NEXUS":
         return "nexus"
     if head.startswith(b"<"):
@@ -312,13 +319,16 @@ def _read_nexus(
             hint="give a NEXUS file with a TREES block, or check the file",
         )
     problems = list(nexus.problems)
-    exact, loose = _taxon_lookup(nexus.taxa)
+    lookups: dict[int, tuple[dict[str, str], dict[str, str | None]]] = {}
     kept = _kept_indices(len(nexus.trees), burn_in, keep_every, file)
     trees: list[ReadTree] = []
     for done, index in enumerate(kept, start=1):
         tree = nexus.trees[index]
         before = len(problems)
-        body = _translate_nexus_tree(tree, text, file, nexus.taxa, exact, loose, problems)
+        if id(tree.taxa) not in lookups:  # one lookup per TAXA block
+            lookups[id(tree.taxa)] = _taxon_lookup(tree.taxa)
+        exact, loose = lookups[id(tree.taxa)]
+        body = _translate_nexus_tree(tree, text, file, tree.taxa, exact, loose, problems)
         try:
             arrays = parse_newick(body, source=file)
         except FormatError as error:

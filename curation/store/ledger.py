@@ -8,6 +8,7 @@ transaction as the change, so the two are stored together or not at all.
 from __future__ import annotations
 
 import getpass
+import math
 import os
 from typing import Any
 
@@ -19,7 +20,14 @@ from curation.findings import Finding
 from curation.store.models import LedgerEvent, StoredFinding
 from curation.timestamps import now
 
-__all__ = ["USER_ENV", "current_user", "record_event", "record_findings", "ledger_frame"]
+__all__ = [
+    "USER_ENV",
+    "current_user",
+    "json_safe",
+    "ledger_frame",
+    "record_event",
+    "record_findings",
+]
 
 USER_ENV = "TIPLEDGER_USER"
 
@@ -36,6 +44,25 @@ def current_user(user: str | None = None) -> str:
         return getpass.getuser()
     except (KeyError, OSError):  # no passwd entry, e.g. in some containers
         return "unknown"
+
+
+def json_safe(value: Any) -> Any:
+    """Return ``value`` with what JSON columns cannot hold made plain: NaN
+    and infinities become None (PostgreSQL's JSON refuses them), NumPy
+    scalars become Python numbers, tuples and sets become lists."""
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set, frozenset)):
+        items = sorted(value, key=str) if isinstance(value, (set, frozenset)) else value
+        return [json_safe(v) for v in items]
+    if hasattr(value, "item") and callable(value.item) and not isinstance(value, (str, bytes)):
+        try:
+            value = value.item()  # a NumPy scalar
+        except (TypeError, ValueError):
+            return str(value)
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 def record_event(
@@ -55,7 +82,7 @@ def record_event(
         action=action,
         subject=subject,
         summary=summary,
-        parameters=parameters or {},
+        parameters=json_safe(parameters or {}),
     )
     session.add(event)
     session.flush()
@@ -71,7 +98,7 @@ def record_findings(session: Session, event: LedgerEvent, findings: list[Finding
             severity=f.severity.value,
             subject=f.subject,
             message=f.message,
-            details=f.details,
+            details=json_safe(f.details),
         )
         for f in findings
     )

@@ -7,6 +7,7 @@ import os
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict
 from sqlalchemy import select
@@ -70,17 +71,28 @@ def audit_frame(frame: pd.DataFrame, tip_labels: list[str], names: pd.DataFrame)
     """
     tips = pd.Index(tip_labels).unique()
     on_tree = frame["tip_label"].isin(tips)
-    by = frame.groupby("trait_source_id", sort=True)
-    sources = pd.DataFrame(
+    source = frame["trait_source_id"].to_numpy()
+    name_code = pd.factorize(frame["written_name"])[0]
+    tip_code = pd.factorize(frame["tip_label"])[0]
+    ids = pd.DataFrame({"s": source, "name": name_code, "tip": tip_code, "on": on_tree.to_numpy()})
+
+    def distinct(column: str, rows: pd.DataFrame) -> pd.Series:
+        return rows[["s", column]].drop_duplicates().groupby("s").size()
+
+    factor = frame["factor"].to_numpy(dtype=float)
+    per_row = pd.DataFrame(
         {
-            "measurements": by.size(),
-            "names": by["written_name"].nunique(),
-            "tips": frame[on_tree].groupby("trait_source_id")["tip_label"].nunique(),
-            "unmatched": by["tip_label"].agg(lambda s: int(s.isna().sum())),
-            "excluded": by["excluded"].sum(),
-            "converted": by["factor"].agg(lambda s: int(((s != 1.0) & s.notna()).sum())),
+            "s": source,
+            "measurements": 1,
+            "unmatched": frame["tip_label"].isna().to_numpy(),
+            "excluded": frame["excluded"].to_numpy(),
+            "converted": ~np.isnan(factor) & (factor != 1.0),
         }
     )
+    sources = per_row.groupby("s").sum()
+    sources.insert(1, "names", distinct("name", ids))
+    sources.insert(2, "tips", distinct("tip", ids[ids["on"]]))
+    sources.index.name = "trait_source_id"
     faults = frame.groupby("trait_source_id")[list(FAULT_KINDS)].sum()
     sources = sources.join(faults.add_prefix("fault_"))
     sources = sources.fillna(0).astype(int).reset_index()

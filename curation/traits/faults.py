@@ -23,9 +23,11 @@ Rules and their options (:class:`FaultOptions`):
 - ``far_from_genus`` (species level): the species median against the
   medians of the other species of its genus (first word of the tip label),
   robust z above ``genus_threshold``, genera of four or more species.
-- ``duplicate_specimen``: the same institution and catalogue number for
-  the same trait, within or across sources; the copy from the most
-  preferred source (lowest priority, then earliest source and row) stays.
+- ``duplicate_specimen``: the same institution and catalogue number in a
+  more preferred source (lowest priority, then earliest source), or the
+  same trait of a specimen measured twice in one source. Only a value that
+  repeats a trait already measured on the specimen (``repeated_value``)
+  leaves species values; the copy from the most preferred source stays.
 - ``exact_duplicate``: a row repeated within one source (all its
   measurements equal); later copies flagged.
 - ``source_conflict`` (species level): per-source means of one species
@@ -86,6 +88,28 @@ class FaultOptions(BaseModel):
     conflict_ratio: float = 1.5
 
 
+def _key_codes(frame: pd.DataFrame) -> pd.DataFrame:
+    """Integer codes of trait, species group and genus (reused when the
+    frame carries them as ``trait_code``/``group_code``/``genus_code``)."""
+    if "trait_code" in frame:
+        return pd.DataFrame(
+            {
+                "trait": frame["trait_code"].to_numpy(),
+                "group": frame["group_code"].to_numpy(),
+                "genus": frame["genus_code"].to_numpy(),
+            },
+            index=frame.index,
+        )
+    return pd.DataFrame(
+        {
+            "trait": pd.factorize(frame["trait"])[0],
+            "group": pd.factorize(frame["group"])[0],
+            "genus": pd.factorize(frame["genus"])[0],
+        },
+        index=frame.index,
+    )
+
+
 def _group_median(values: pd.Series, keys: list[pd.Series]) -> pd.Series:
     return values.groupby(keys, sort=False, dropna=False).transform("median")
 
@@ -106,6 +130,8 @@ def find_faults(frame: pd.DataFrame, options: FaultOptions | None = None) -> pd.
     """
     options = options or FaultOptions()
     out = pd.DataFrame(index=frame.index)
+    # Integer codes of the string keys, hashed once for every rule below.
+    codes = _key_codes(frame)
     continuous = frame["kind"].to_numpy() == "continuous"
     value = frame["value"].to_numpy(dtype=float)
     has_value = continuous & frame["number_ok"].to_numpy() & ~np.isnan(value)
@@ -122,22 +148,30 @@ def find_faults(frame: pd.DataFrame, options: FaultOptions | None = None) -> pd.
     out["out_of_range"] = out_of_range
 
     # Duplicates first: a second copy must not weigh in the species median.
-    dup = _duplicates(frame, options)
+    dup = _duplicates(frame, codes)
     out["duplicate_specimen"] = dup["duplicate_specimen"]
+    out["repeated_value"] = dup["repeated_value"]
     out["exact_duplicate"] = dup["exact_duplicate"]
 
     # Within-species rules on the natural log of positive usable values.
-    clean = usable & ~impossible & ~out_of_range & (value > 0) & ~dup["duplicate_specimen"]
+    clean = usable & ~impossible & ~out_of_range & (value > 0) & ~dup["repeated_value"]
     logs = pd.Series(
         np.where(clean, np.log(np.where(clean, value, 1.0)), np.nan), index=frame.index
     )
-    keys = [frame["group"], frame["trait"]]
+    # One integer code per species and trait, hashed once for every rule.
+    pair = pd.Series(
+        pd.factorize(codes["group"].to_numpy() * (codes["trait"].max() + 1) + codes["trait"])[0]
+        if len(frame)
+        else np.zeros(0, dtype=np.int64),
+        index=frame.index,
+    )
+    keys = [pair]
     n = logs.notna().groupby(keys, sort=False).transform("sum").to_numpy()
     median = _group_median(logs, keys)
     deviation = (logs - median).abs()
     mad = _group_median(deviation, keys) * 1.4826
     # A floor per trait: half the typical within-species spread.
-    typical = mad.where(n >= options.outlier_min_n).groupby(frame["trait"]).transform("median")
+    typical = mad.where(n >= options.outlier_min_n).groupby(codes["trait"]).transform("median")
     # And a floor from the precision written: values recorded to 0.1 cannot
     # spread less than one step, whatever a tied sample's MAD says.
     step = _written_step(frame) * frame["factor"].to_numpy(dtype=float)
@@ -167,82 +201,123 @@ def find_faults(frame: pd.DataFrame, options: FaultOptions | None = None) -> pd.
 
     discrete = ~continuous & frame["state"].notna().to_numpy()
     out["unknown_state"] = discrete & ~frame["state_ok"].to_numpy(dtype=bool)
-    out["state_conflict"] = _state_conflicts(frame, discrete & ~out["unknown_state"].to_numpy())
+    out["state_conflict"] = _state_conflicts(
+        frame, pair, discrete & ~out["unknown_state"].to_numpy()
+    )
 
     excluded = np.zeros(len(frame), dtype=bool)
     for kind in ("unconverted", "impossible", "out_of_range", "unit_slip", "outlier"):
         excluded |= out[kind].to_numpy()
     kept = clean & ~excluded
-    out["far_from_genus"] = _far_from_genus(frame, logs.where(kept), options)
+    out["far_from_genus"] = _far_from_genus(frame, codes, logs.where(kept), options)
     # Sources are compared before the within-species rules: a source that
     # wrote a whole species in another unit is a conflict, not a slip.
     out["source_conflict"] = _source_conflicts(
-        frame, pd.Series(value, index=frame.index).where(clean), options
+        frame, pair, pd.Series(value, index=frame.index).where(clean), options
     )
     return out
 
 
 def _written_step(frame: pd.DataFrame) -> np.ndarray:
     """Return the step of the last digit written (0.1 for ``"4.2"``, 1 for ``"42"``)."""
-    written = frame["value_written"].astype("string").str.strip()
-    decimals = written.str.extract(r"[.,](\d+)\s*$", expand=False).str.len()
-    return np.power(10.0, -decimals.fillna(0).to_numpy(dtype=float))
+    text = np.asarray(frame["value_written"].fillna("").astype(str).to_numpy(), dtype=str)
+    text = np.strings.strip(text)
+    point = np.maximum(np.strings.rfind(text, "."), np.strings.rfind(text, ","))
+    length = np.strings.str_len(text)
+    decimals = np.where(point >= 0, length - point - 1, 0)
+    return np.power(10.0, -decimals.astype(float))
 
 
-def _duplicates(frame: pd.DataFrame, options: FaultOptions) -> pd.DataFrame:
-    institution = frame["institution"].astype("string").str.strip().str.upper()
-    specimen = frame["specimen_id"].astype("string").str.strip()
-    named = (institution.fillna("") != "") & (specimen.fillna("") != "")
+def _tidy_codes(series: pd.Series, *, upper: bool = False) -> np.ndarray:
+    """Codes of the values stripped (and upper-cased), -1 for blank or
+    missing; each distinct value is tidied once, not each row."""
+    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    tidy = pd.Index(uniques, dtype=object).astype(str).str.strip()
+    if upper:
+        tidy = tidy.str.upper()
+    tidy_codes, tidy_values = pd.factorize(tidy)
+    blank = np.asarray(tidy_values == "", dtype=bool)
+    tidy_codes = np.where(blank[tidy_codes], -1, tidy_codes) if len(tidy_codes) else tidy_codes
+    return np.where(codes >= 0, tidy_codes[np.maximum(codes, 0)] if len(tidy_codes) else -1, -1)
+
+
+def _duplicates(frame: pd.DataFrame, codes: pd.DataFrame) -> pd.DataFrame:
+    """Flag specimens measured again and rows repeated within a source.
+
+    ``duplicate_specimen``: the specimen (institution and catalogue number)
+    is also in a more preferred source, or this trait of it was measured
+    before in the same source. ``repeated_value`` marks the ones that repeat
+    a trait already measured on the specimen: those leave species values.
+    """
+    institution = _tidy_codes(frame["institution"], upper=True)
+    specimen = _tidy_codes(frame["specimen_id"])
+    named = (institution >= 0) & (specimen >= 0)
     order = np.lexsort(
         (frame["id"].to_numpy(), frame["trait_source_id"].to_numpy(), frame["priority"].to_numpy())
     )
-    ordered = pd.DataFrame(
-        {
-            "i": institution.to_numpy()[order],
-            "s": specimen.to_numpy()[order],
-            "t": frame["trait"].to_numpy()[order],
-        }
-    )
-    repeated = ordered.duplicated(keep="first").to_numpy() & named.to_numpy()[order]
-    specimen_dup = np.zeros(len(frame), dtype=bool)
-    specimen_dup[order] = repeated
+    width = int(specimen.max()) + 2 if len(frame) else 1
+    who = pd.Series((institution.astype(np.int64) + 1) * width + specimen + 1)
+    source = frame["trait_source_id"].to_numpy()
+    # The preferred source of each specimen is the first in (priority, source) order.
+    first_source = pd.Series(source[order]).groupby(who.to_numpy()[order]).transform("first")
+    elsewhere = np.zeros(len(frame), dtype=bool)
+    elsewhere[order] = first_source.to_numpy() != source[order]
+    traits = int(codes["trait"].max()) + 1 if len(frame) else 1
+    measured = pd.Series(who.to_numpy() * traits + codes["trait"].to_numpy())
+    repeated = np.zeros(len(frame), dtype=bool)
+    repeated[order] = pd.Series(measured.to_numpy()[order]).duplicated(keep="first").to_numpy()
+    repeated &= named
+    elsewhere &= named
 
-    # A row's fingerprint: the order-free sum of its measurements' hashes.
-    fields = [
-        "written_name",
-        "specimen_id",
-        "institution",
-        "trait",
-        "value_written",
-        "unit",
-        "sex",
-        "life_stage",
-    ]
-    hashed = pd.util.hash_pandas_object(frame[fields].astype("string"), index=False)
-    rows = pd.DataFrame(
+    # Exact duplicate rows: only rows all of whose measurements repeat
+    # (same source, name, specimen, trait and number) can be; those few are
+    # compared in full by an order-free sum of their measurements' hashes.
+    number = frame["value_number"].to_numpy(dtype=float)
+    candidate_key = pd.DataFrame(
         {
-            "source": frame["trait_source_id"].to_numpy(),
-            "row": frame["row_number"].to_numpy(),
-            "h": hashed.to_numpy(),
+            "source": source,
+            "group": codes["group"].to_numpy(),
+            "who": who.to_numpy(),
+            "trait": codes["trait"].to_numpy(),
+            "number": np.nan_to_num(number, nan=-1.5e308),
         }
     )
-    grouped = rows.groupby(["source", "row"], sort=True)["h"]
-    per_row = pd.DataFrame({"sum": grouped.sum(), "count": grouped.size()}).reset_index()
-    per_row = per_row.sort_values(["source", "row"], kind="stable")
-    per_row["dup"] = per_row.duplicated(["source", "sum", "count"], keep="first")
-    flagged = rows.merge(per_row[["source", "row", "dup"]], on=["source", "row"], how="left")
+    candidate = candidate_key.duplicated(keep=False).to_numpy()
+    rows = pd.DataFrame({"source": source, "row": frame["row_number"].to_numpy(), "c": candidate})
+    whole = rows.groupby(["source", "row"], sort=False)["c"].transform("all").to_numpy()
+    exact = np.zeros(len(frame), dtype=bool)
+    if whole.any():
+        fields = [
+            "written_name",
+            "specimen_id",
+            "institution",
+            "trait",
+            "value_written",
+            "unit",
+            "sex",
+            "life_stage",
+        ]
+        subset = frame.loc[whole, fields].astype("string")
+        hashed = pd.util.hash_pandas_object(subset, index=False).to_numpy()
+        part = rows.loc[whole, ["source", "row"]].assign(h=hashed)
+        grouped = part.groupby(["source", "row"], sort=True)["h"]
+        per_row = pd.DataFrame({"sum": grouped.sum(), "count": grouped.size()}).reset_index()
+        per_row["dup"] = per_row.duplicated(["source", "sum", "count"], keep="first")
+        flagged = part.merge(per_row[["source", "row", "dup"]], on=["source", "row"], how="left")
+        exact[whole] = flagged["dup"].to_numpy(dtype=bool)
     return pd.DataFrame(
         {
-            "duplicate_specimen": specimen_dup,
-            "exact_duplicate": flagged["dup"].to_numpy(dtype=bool),
+            "duplicate_specimen": repeated | elsewhere,
+            "repeated_value": repeated,
+            "exact_duplicate": exact,
         },
         index=frame.index,
     )
 
 
-def _state_conflicts(frame: pd.DataFrame, known: np.ndarray) -> np.ndarray:
+def _state_conflicts(frame: pd.DataFrame, pair: pd.Series, known: np.ndarray) -> np.ndarray:
     states = frame["state"].where(known)
-    keys = [frame["group"], frame["trait"]]
+    keys = [pair]
     count = states.groupby([*keys, states], sort=False, dropna=False).transform("size")
     distinct = states.groupby(keys, sort=False).transform("nunique")
     top = count.where(known).groupby(keys, sort=False).transform("max")
@@ -253,9 +328,11 @@ def _state_conflicts(frame: pd.DataFrame, known: np.ndarray) -> np.ndarray:
     return conflicted & ((count.to_numpy() < top.to_numpy()) | tie)
 
 
-def _far_from_genus(frame: pd.DataFrame, logs: pd.Series, options: FaultOptions) -> np.ndarray:
+def _far_from_genus(
+    frame: pd.DataFrame, codes: pd.DataFrame, logs: pd.Series, options: FaultOptions
+) -> np.ndarray:
     species = pd.DataFrame(
-        {"genus": frame["genus"], "group": frame["group"], "trait": frame["trait"], "x": logs}
+        {"genus": codes["genus"], "group": codes["group"], "trait": codes["trait"], "x": logs}
     ).dropna(subset=["x"])
     if species.empty:
         return np.zeros(len(frame), dtype=bool)
@@ -275,15 +352,17 @@ def _far_from_genus(frame: pd.DataFrame, logs: pd.Series, options: FaultOptions)
     far_pairs = medians.loc[far, ["group", "trait"]]
     if far_pairs.empty:
         return np.zeros(len(frame), dtype=bool)
-    marked = frame[["group", "trait"]].merge(
+    marked = codes[["group", "trait"]].merge(
         far_pairs.assign(hit=True), how="left", on=["group", "trait"]
     )
     return marked["hit"].fillna(False).to_numpy(dtype=bool) & logs.notna().to_numpy()
 
 
-def _source_conflicts(frame: pd.DataFrame, values: pd.Series, options: FaultOptions) -> np.ndarray:
+def _source_conflicts(
+    frame: pd.DataFrame, pair: pd.Series, values: pd.Series, options: FaultOptions
+) -> np.ndarray:
     positive = values.where(values > 0)
-    keys = [frame["group"], frame["trait"]]
+    keys = [pair]
     means = positive.groupby([*keys, frame["trait_source_id"]], sort=False).transform("mean")
     high = means.groupby(keys, sort=False).transform("max")
     low = means.groupby(keys, sort=False).transform("min")

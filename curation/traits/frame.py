@@ -164,8 +164,11 @@ def prepare_frame(
         frame["review"] = None
         frame["review_reason"] = None
     traits = _trait_table(frame, definitions)
+    trait_codes, trait_names = pd.factorize(frame["trait"])
+    per_trait = traits.reindex(pd.Index(trait_names, dtype=object))
     for column in ("kind", "target", "scale", "minimum", "maximum"):
-        frame[column] = frame["trait"].map(traits[column])
+        values = per_trait[column].to_numpy(dtype=object)
+        frame[column] = values[trait_codes] if len(frame) else pd.Series(dtype=object)
     frame[["minimum", "maximum"]] = frame[["minimum", "maximum"]].astype(float)
     frame = frame.join(convert_values(frame))
     frame = frame.join(_states(frame, definitions))
@@ -173,14 +176,23 @@ def prepare_frame(
     tip = frame["tip_label"]
     frame["group"] = tip.where(tip.notna(), "name:" + frame["written_name"].astype(str))
     frame["group"] = frame["group"].astype(object)
-    frame["genus"] = frame["group"].astype("string").str.split(r"[_ ]", n=1, regex=True).str[0]
+    codes, groups = pd.factorize(frame["group"])
+    genera = pd.Index(groups, dtype=object).astype(str).str.split(r"[_ ]", n=1, regex=True).str[0]
+    genus_codes, genus_names = pd.factorize(pd.Index(genera, dtype=object))
+    frame["genus"] = (
+        np.asarray(genus_names, dtype=object)[genus_codes[codes]] if len(groups) else ""
+    )
+    frame["trait_code"] = trait_codes
+    frame["group_code"] = codes
+    frame["genus_code"] = genus_codes[codes] if len(groups) else codes
     flags = find_faults(frame, options)
     frame = frame.join(flags)
     named = frame["specimen_id"].notna() & frame["institution"].notna()
     bad = np.zeros(len(frame), dtype=bool)
     reason = np.full(len(frame), "", dtype=object)
     for kind in reversed((*EXCLUDING, "exact_duplicate")):  # first kind named wins
-        hit = frame[kind].to_numpy()
+        # A specimen seen in another source leaves only when it repeats a trait.
+        hit = frame["repeated_value" if kind == "duplicate_specimen" else kind].to_numpy()
         if kind == "exact_duplicate":
             hit = hit & named.to_numpy()
         bad |= hit
@@ -200,11 +212,16 @@ def prepare_frame(
     reason = np.where(curator_out, "curator", np.where(curator_in, "", reason))
     frame["excluded"] = excluded
     frame["exclusion"] = reason
-    text = pd.Series("", index=frame.index, dtype=object)
-    for kind in FAULT_KINDS:  # eleven kinds, each one vectorised step
-        text = text + np.where(frame[kind].to_numpy(), kind + ";", "")
-    frame["flags"] = text.str.rstrip(";")
-    return frame.drop(columns=["number_ok", "group"])
+    # Each distinct combination of flags is spelled once, then looked up.
+    marks = frame[list(FAULT_KINDS)].to_numpy(dtype=np.int64)
+    mask = marks @ (1 << np.arange(len(FAULT_KINDS), dtype=np.int64))
+    distinct, inverse = np.unique(mask, return_inverse=True)
+    spelled = np.array(
+        [";".join(k for i, k in enumerate(FAULT_KINDS) if m >> i & 1) for m in distinct],
+        dtype=object,
+    )
+    frame["flags"] = spelled[inverse.reshape(-1)] if len(frame) else pd.Series(dtype=object)
+    return frame.drop(columns=["number_ok", "group", "trait_code", "group_code", "genus_code"])
 
 
 def measurements_frame(

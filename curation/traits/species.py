@@ -62,9 +62,25 @@ def _on_scale(value: pd.Series, scale: pd.Series) -> pd.Series:
         )
 
 
-def _ids(frame: pd.DataFrame, keys: list[str]) -> pd.Series:
-    ordered = frame.sort_values("id", kind="stable")
-    return ordered.groupby(keys, sort=True)["id"].agg(lambda s: [int(i) for i in s])
+def _codes(frame: pd.DataFrame, keys: list[str]) -> np.ndarray:
+    """One integer per distinct key combination, ordered like the sorted keys."""
+    code = np.zeros(len(frame), dtype=np.int64)
+    for key in keys:
+        part, uniques = pd.factorize(frame[key], sort=True)
+        code = code * (len(uniques) + 1) + part
+    return pd.factorize(code, sort=True)[0]
+
+
+def _ids(frame: pd.DataFrame, codes: np.ndarray) -> list[list[int]]:
+    """The sorted measurement ids of each code, as lists, in code order."""
+    order = np.lexsort((frame["id"].to_numpy(), codes))
+    ids = frame["id"].to_numpy()[order].astype(np.int64)
+    if not len(ids):
+        return []
+    starts = np.r_[0, np.flatnonzero(np.diff(codes[order])) + 1]
+    ends = np.r_[starts[1:], len(ids)]
+    every = ids.tolist()
+    return [every[a:b] for a, b in zip(starts.tolist(), ends.tolist(), strict=True)]
 
 
 def _continuous(frame: pd.DataFrame, keys: list[str], policy: str) -> pd.DataFrame:
@@ -72,37 +88,43 @@ def _continuous(frame: pd.DataFrame, keys: list[str], policy: str) -> pd.DataFra
         return pd.DataFrame(columns=[*keys, *SPECIES_COLUMNS[2:]])
     frame = frame.assign(x=_on_scale(frame["value"], frame["scale"]))
     if policy == "priority":
-        rank = frame.groupby(keys, sort=False)["priority"].transform("min")
+        pair = _codes(frame, keys)
+        rank = frame.groupby(pair, sort=False)["priority"].transform("min")
         frame = frame[frame["priority"] == rank]
-        first = frame.groupby(keys, sort=False)["trait_source_id"].transform("min")
+        pair = _codes(frame, keys)
+        first = frame.groupby(pair, sort=False)["trait_source_id"].transform("min")
         frame = frame[frame["trait_source_id"] == first]
-    grouped = frame.groupby(keys, sort=True)
-    out = grouped.agg(
-        kind=("kind", "first"),
-        scale=("scale", "first"),
-        unit=("target", "first"),
-        n=("x", "size"),
-        mean=("x", "mean"),
-        sd=("x", "std"),
-        median=("x", "median"),
-        sources=("trait_source_id", "nunique"),
-    )
+    code = _codes(frame, keys)
+    x = frame["x"]
+    grouped = x.groupby(code, sort=True)
+    first_rows = pd.Series(np.arange(len(frame))).groupby(code, sort=True).first().to_numpy()
+    out = frame.iloc[first_rows][keys].reset_index(drop=True)
+    out["kind"] = frame["kind"].to_numpy()[first_rows]
+    out["scale"] = frame["scale"].to_numpy()[first_rows]
+    out["unit"] = frame["target"].to_numpy()[first_rows]
+    out["n"] = grouped.size().to_numpy()
+    out["mean"] = grouped.mean().to_numpy()
+    out["sd"] = grouped.std().to_numpy()
+    out["median"] = grouped.median().to_numpy()
+    sources = pd.DataFrame({"c": code, "s": frame["trait_source_id"].to_numpy()})
+    out["sources"] = sources.drop_duplicates().groupby("c", sort=True).size().to_numpy()
     if policy == "weighted":
-        per = frame.groupby([*keys, "trait_source_id"], sort=True)["x"].agg(["size", "mean", "var"])
+        per = pd.DataFrame({"c": code, "s": frame["trait_source_id"].to_numpy(), "x": x.to_numpy()})
+        per = per.groupby(["c", "s"], sort=True)["x"].agg(["size", "mean", "var"])
         per["ss"] = per["var"].fillna(0.0) * (per["size"] - 1)
         per["wx"] = per["mean"] * per["size"]
-        summed = per.groupby(level=keys).agg(
+        summed = per.groupby(level="c").agg(
             n=("size", "sum"), wx=("wx", "sum"), ss=("ss", "sum"), k=("size", "size")
         )
-        out["mean"] = summed["wx"] / summed["n"]
+        out["mean"] = (summed["wx"] / summed["n"]).to_numpy()
         dof = summed["n"] - summed["k"]
-        out["sd"] = np.sqrt(summed["ss"] / dof.where(dof > 0))
+        out["sd"] = np.sqrt(summed["ss"] / dof.where(dof > 0)).to_numpy()
     out["se"] = out["sd"] / np.sqrt(out["n"])
     out["state"] = None
     out["agreement"] = np.nan
     out["note"] = ""
-    out["measurement_ids"] = _ids(frame, keys)
-    return out.reset_index()
+    out["measurement_ids"] = _ids(frame, code)
+    return out
 
 
 def _discrete(frame: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
@@ -137,7 +159,7 @@ def _discrete(frame: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
     )
     for column in ("mean", "sd", "se", "median"):
         out[column] = np.nan
-    out["measurement_ids"] = _ids(frame, keys)
+    out["measurement_ids"] = _ids(frame, _codes(frame, keys))
     return out.reset_index()
 
 

@@ -98,13 +98,22 @@ def convert_values(frame: pd.DataFrame) -> pd.DataFrame:
     )
     numeric = frame["value_number"].notna().to_numpy()
     table = conversion_table(keys[numeric]) if numeric.any() else conversion_table(keys.head(0))
-    # Map each row to its pair through categorical codes: one merge, no loops.
-    fill = "\x00"
-    left = keys["unit"].fillna(fill).astype(str) + "\x01" + keys["target"].fillna(fill).astype(str)
-    right = (
-        table["unit"].fillna(fill).astype(str) + "\x01" + table["target"].fillna(fill).astype(str)
+    # Map each row to its pair through integer codes: no string work per row.
+    unit_codes, unit_values = pd.factorize(keys["unit"])
+    target_codes, target_values = pd.factorize(keys["target"])
+    width = len(target_values) + 1
+    row_key = (unit_codes + 1) * width + (target_codes + 1)
+    unit_lookup = {v: i for i, v in enumerate(unit_values)}
+    target_lookup = {v: i for i, v in enumerate(target_values)}
+    table_key = np.array(
+        [
+            (unit_lookup.get(u, -1) + 1 if u is not None else 0) * width
+            + (target_lookup.get(t, -1) + 1 if t is not None else 0)
+            for u, t in zip(table["unit"], table["target"], strict=True)
+        ],
+        dtype=np.int64,
     )
-    position = pd.Index(right).get_indexer(left)
+    position = pd.Index(table_key).get_indexer(row_key)
     found = position >= 0
     factor = np.full(len(frame), np.nan)
     offset = np.full(len(frame), np.nan)

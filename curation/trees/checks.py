@@ -88,9 +88,9 @@ FINDING_PHRASES: dict[str, str] = {
 }
 
 # Characters that change a label's meaning in unquoted Newick (blanks,
-# punctuation, quotes, brackets); an unquoted underscore is read as a blank
-# by many readers, so it counts too for the "needs quoting" check.
-_QUOTE_NEEDED = re.compile(r"[\s(),:;'\[\]_]")
+# punctuation, quotes, brackets). Underscores are not among them: labels
+# are kept as written, and DendroPy is read with preserve_underscores.
+_QUOTE_NEEDED = re.compile(r"[\s(),:;'\[\]]")
 
 
 _MINIMUM_LOG_MAD = 0.2
@@ -314,45 +314,45 @@ def _outlier_findings(tree: TreeArrays, names: NodeNames, threshold: float) -> l
 
 def _label_findings(tree: TreeArrays) -> list[Finding]:
     findings: list[Finding] = []
-    tips = tree.tips
-    labels = [tree.labels[i] for i in tips]
-    positions: dict[str, list[int]] = {}
-    for position, label in enumerate(labels):
-        positions.setdefault(label, []).append(position)
-    empty = positions.pop("", [])
-    if empty:
+    labels = pd.Series([tree.labels[i] for i in tree.tips], dtype=object)
+    empty = np.flatnonzero((labels == "").to_numpy())
+    if len(empty):
         findings.append(
             Finding(
                 code="tree.empty_label",
                 severity=Severity.error,
                 subject="tips without labels",
                 message=f"{len(empty)} tips have no label",
-                details={"count": len(empty), "positions": empty[:50]},
+                details={"count": len(empty), "positions": empty[:50].tolist()},
             )
         )
-    for label, where in sorted(positions.items()):
-        if len(where) > 1:
-            findings.append(
-                Finding(
-                    code="tree.duplicate_label",
-                    severity=Severity.error,
-                    subject=f"tip {label!r}",
-                    message=f"the tip label {label!r} is on {len(where)} tips "
-                    f"(positions {', '.join(map(str, where[:10]))} in the tree)",
-                    details={"label": label, "count": len(where), "positions": where},
-                )
+    named = labels[labels != ""]
+    repeated = named[named.duplicated(keep=False)]
+    for label, where in sorted(repeated.groupby(repeated, sort=False).groups.items()):
+        positions = [int(p) for p in where]
+        findings.append(
+            Finding(
+                code="tree.duplicate_label",
+                severity=Severity.error,
+                subject=f"tip {label!r}",
+                message=f"the tip label {label!r} is on {len(positions)} tips "
+                f"(positions {', '.join(map(str, positions[:10]))} in the tree)",
+                details={"label": label, "count": len(positions), "positions": positions},
             )
-        if _QUOTE_NEEDED.search(label):
-            findings.append(
-                Finding(
-                    code="tree.label_needs_quotes",
-                    severity=Severity.info,
-                    subject=f"tip {label!r}",
-                    message=f"the label {label!r} survives a Newick round trip only when "
-                    "quoted (blanks, punctuation or underscores change meaning unquoted)",
-                    details={"label": label},
-                )
+        )
+    quoted = named[named.str.contains(_QUOTE_NEEDED, regex=True)].drop_duplicates()
+    for label in sorted(quoted):
+        findings.append(
+            Finding(
+                code="tree.label_needs_quotes",
+                severity=Severity.info,
+                subject=f"tip {label!r}",
+                message=f"the label {label!r} survives a Newick round trip only when "
+                "quoted (blanks, punctuation, quotes or brackets change its meaning "
+                "unquoted); tipledger quotes it on writing, other programs may not",
+                details={"label": label},
             )
+        )
     return findings
 
 
@@ -538,7 +538,7 @@ def _set_findings(
             having = sum(label in tips for tips in tip_sets)
             out.append(
                 Finding(
-                    code="tree.tip_not_in_all_trees",
+                    code="tree.tips_not_shared",
                     severity=Severity.warning,
                     subject=f"tip {label!r}",
                     message=f"the tip {label!r} is in {having} of the {total} trees",
@@ -546,7 +546,7 @@ def _set_findings(
                 )
             )
         if union != everywhere:
-            counts["tree.tip_not_in_all_trees"] = sum(1 for tips in tip_sets if tips != union)
+            counts["tree.tips_not_shared"] = sum(1 for tips in tip_sets if tips != union)
             sentences.append(f"{len(union - everywhere)} tips are not in all {total} trees")
         for code in sorted(c for c in counts if c in FINDING_PHRASES):
             out.append(
