@@ -213,6 +213,9 @@ def test_terminal_review_through_the_command_line(
     assert result.exit_code == 0, result.output
     assert "Undone: 'Cus dus' is pending again." in result.output
     assert "'Cus_duss' is not a tip" in result.output
+    # One rejection, one acceptance kept (the first pick of Cus dus undone).
+    assert "accepted: 1" in result.output and "rejected: 1" in result.output
+    assert "undone: 1" in result.output and "remaining: 2" in result.output  # Ius jos, Zzz qqq
     decided = _in_force(store, tree_set)
     assert decided.loc["", "status"] == "rejected"
     assert decided.loc["Cus dus", "tip_label"] == "Cus_dus"

@@ -30,7 +30,8 @@ KEYS = "a accept first | 1-9 pick candidate | t type a tip | r reject | s skip |
 
 
 class ReviewResult(BaseModel):
-    """What one review session did."""
+    """What one review session did (an undone decision is no longer
+    counted as accepted or rejected)."""
 
     accepted: int = 0
     rejected: int = 0
@@ -63,7 +64,7 @@ def review_names(
         tips = tip_labels_of_set(session, tree_set_id)
     tip_set = set(tips)
     result = ReviewResult()
-    history: list[tuple[int, dict[str, Any]]] = []
+    history: list[tuple[int, dict[str, Any], str]] = []
     total = len(pending)
     if total == 0:
         say("No pending names: nothing to review.")
@@ -74,7 +75,7 @@ def review_names(
             before = current_decisions(session, tree_set_id)
             previous = before[before["written_name"] == item["written_name"]]
             apply_decisions(session, tree_set_id, [item], action="review-names", who=who)
-        history.append((i, previous.iloc[0].to_dict()))
+        history.append((i, previous.iloc[0].to_dict(), item["status"]))
 
     while i < total:
         row = pending.iloc[i]
@@ -98,7 +99,7 @@ def review_names(
             if not history:
                 say("Nothing to undo in this session.")
                 continue
-            back_to, previous = history.pop()
+            back_to, previous, undone_status = history.pop()
             with store.transaction() as session:
                 apply_decisions(
                     session,
@@ -119,6 +120,10 @@ def review_names(
                     who=who,
                 )
             result.undone += 1
+            if undone_status == "accepted":
+                result.accepted -= 1
+            else:
+                result.rejected -= 1
             say(f"Undone: {previous['written_name']!r} is {previous['status']} again.")
             i = back_to
             continue
