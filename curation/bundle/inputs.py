@@ -20,7 +20,6 @@ from curation.store.decisions import current_decisions
 from curation.store.engine import Store
 from curation.store.models import (
     LedgerEvent,
-    Measurement,
     MeasurementReview,
     Source,
     StoredFinding,
@@ -139,33 +138,11 @@ def _repair_chain(session: Any, tree_set: TreeSet) -> list[dict[str, Any]]:
     return chain
 
 
-def _measurement_rows(session: Any, traits: list[str] | None) -> pd.DataFrame:
-    query = select(
-        Measurement.id.label("measurement_id"),
-        Measurement.trait_source_id,
-        TraitSource.name.label("trait_source"),
-        TraitSource.priority,
-        Source.id.label("source_id"),
-        Source.file_name.label("source_file"),
-        Source.sha256.label("source_sha256"),
-        Measurement.row_number,
-        Measurement.written_name,
-        Measurement.specimen_id,
-        Measurement.institution,
-        Measurement.trait,
-        Measurement.value_written,
-        Measurement.value_number,
-        Measurement.unit,
-        Measurement.sex,
-        Measurement.life_stage,
-        Measurement.status,
-        Measurement.reason,
-    ).join(TraitSource, Measurement.trait_source_id == TraitSource.id)
-    query = query.join(Source, TraitSource.source_id == Source.id)
-    if traits:
-        query = query.where(Measurement.trait.in_(traits))
-    rows = session.execute(query.order_by(Measurement.id)).all()
-    return pd.DataFrame(rows, columns=list(query.selected_columns.keys()))
+def _trait_sources(session: Any) -> pd.DataFrame:
+    rows = session.execute(
+        select(TraitSource.id, TraitSource.name, TraitSource.source_id).order_by(TraitSource.id)
+    ).all()
+    return pd.DataFrame(rows, columns=["trait_source_id", "trait_source", "source_id"])
 
 
 def _reviews_in_force(session: Any) -> pd.DataFrame:
@@ -188,19 +165,32 @@ def _reviews_in_force(session: Any) -> pd.DataFrame:
 
 
 def _curated(
-    store: Store, decision_set_id: int, options: BundleOptions, measurements: pd.DataFrame
+    store: Store, decision_set_id: int, options: BundleOptions, trait_sources: pd.DataFrame
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Species values by the traits stage, and the measurements with their
-    converted value, flags and whether they count."""
+    """Species values by the traits stage, and the measurements (of the
+    chosen traits) with their tip, converted value, flags and whether they
+    count, read once for both."""
     from curation.traits import aggregate_species, measurements_frame
 
     frame = measurements_frame(store, decision_set_id)
+    if options.traits:
+        present = set(frame["trait"])
+        unknown = [t for t in options.traits if t not in present]
+        if unknown:
+            raise InputError(
+                f"no measurements of trait(s) {', '.join(map(repr, unknown))} "
+                f"(traits stored: {', '.join(sorted(present)) or 'none'})",
+                field="trait",
+                hint="give --trait with one of the stored traits",
+            )
+        frame = frame[frame["trait"].isin(options.traits)]
     species = aggregate_species(frame, traits=options.traits, policy=options.policy)
-    curated = frame.set_index("id")[["value", "target", "factor", "flags", "excluded", "exclusion"]]
-    curated = curated.rename(columns={"target": "target_unit", "excluded": "not_counted"})
-    joined = measurements.join(curated, on="measurement_id")
-    joined["used"] = ~joined["not_counted"].fillna(True).astype(bool)
-    return species, joined.drop(columns=["not_counted"])
+    measurements = frame.rename(columns={"id": "measurement_id", "target": "target_unit"}).merge(
+        trait_sources, on="trait_source_id", how="left"
+    )
+    measurements["used"] = ~measurements["excluded"].astype(bool)
+    measurements["curator_excluded"] = measurements["review"].eq("exclude")
+    return species, measurements.reset_index(drop=True)
 
 
 def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
@@ -267,23 +257,8 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
             )
         original = decision_tree_set(session, tree_set)
         names = current_decisions(session, original.id)
-        measurements = _measurement_rows(session, options.traits)
-        if options.traits:
-            present = set(measurements["trait"])
-            unknown = [t for t in options.traits if t not in present]
-            if unknown:
-                known = sorted(set(session.scalars(select(Measurement.trait).distinct()).all()))
-                raise InputError(
-                    f"no measurements of trait(s) {', '.join(map(repr, unknown))} "
-                    f"(traits stored: {', '.join(known) or 'none'})",
-                    field="trait",
-                    hint="give --trait with one of the stored traits",
-                )
         reviews = _reviews_in_force(session)
-        accepted = names[names["status"] == "accepted"].set_index("written_name")["tip_label"]
-        measurements["tip_label"] = measurements["written_name"].map(accepted)
-        excluded = set(reviews.loc[reviews["action"] == "exclude", "measurement_id"])
-        measurements["curator_excluded"] = measurements["measurement_id"].isin(excluded)
+        trait_sources = _trait_sources(session)
         tree_source_ids = {
             sid
             for sid in session.scalars(
@@ -335,7 +310,7 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
             "derived_from_id": tree_set.derived_from_id,
             "tree_count": tree_set.tree_count,
         }
-    species, measurements = _curated(store, original.id, options, measurements)
+    species, measurements = _curated(store, original.id, options, trait_sources)
     return BundleInputs(
         options=options,
         store_url=store.display_url(),

@@ -54,7 +54,7 @@ FIELD_DESCRIPTIONS = {
     "tip_label": "Tip label of the tree, exactly as in the tree file",
     "written_name": "The taxon name as written in the trait source",
     "measurement_id": "Id of the measurement in the store",
-    "source_sha256": "sha256 of the source file (see provenance.json)",
+    "source_id": "Id of the source file in the store; provenance.json gives its name and sha256",
     "row_number": "Row of the source file the value was read from (1 = first data row)",
 }
 

@@ -197,14 +197,16 @@ def _check_provenance(folder: Path, problems: list[str]) -> None:
     except ValueError as exc:
         problems.append(f"provenance.json is not valid JSON: {exc}")
         return
-    listed = {entry.get("sha256") for entry in data.get("inputs", [])}
+    listed = {
+        str(entry.get("source_id")) for entry in data.get("inputs", []) if entry.get("sha256")
+    }
     used = folder / "measurements_used.csv"
     if used.is_file():
-        frame = pd.read_csv(used, usecols=["source_sha256"], dtype=str, keep_default_na=False)
-        for digest in sorted(set(frame["source_sha256"]) - listed):
+        frame = pd.read_csv(used, usecols=["source_id"], dtype=str, keep_default_na=False)
+        for source in sorted(set(frame["source_id"]) - listed):
             problems.append(
-                f"measurements_used.csv cites source {digest[:12]}... "
-                "that provenance.json does not list"
+                f"measurements_used.csv cites source {source} "
+                "that provenance.json does not list with its sha256"
             )
     if not any(entry.get("kind") == "tree" for entry in data.get("inputs", [])):
         problems.append("provenance.json lists no tree source")

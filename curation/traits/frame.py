@@ -23,6 +23,7 @@ from sqlalchemy.orm import Session
 
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
+from curation.store.frames import select_frame
 from curation.store.models import Measurement, MeasurementReview, TraitSource
 from curation.traits.definitions import normalise_state, trait_definitions
 from curation.traits.faults import EXCLUDING, FAULT_KINDS, FaultOptions, find_faults
@@ -57,7 +58,8 @@ def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame,
     """Return the raw measurements (:data:`RAW_COLUMNS` plus ``tip_label``
     from the accepted decisions in force, ``review`` and ``review_reason``
     of the latest curator review) and the trait definitions."""
-    rows = session.execute(
+    frame = select_frame(
+        session,
         select(
             Measurement.id,
             Measurement.trait_source_id,
@@ -75,9 +77,9 @@ def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame,
             Measurement.status,
         )
         .join(TraitSource, TraitSource.id == Measurement.trait_source_id)
-        .order_by(Measurement.id)
-    ).all()
-    frame = pd.DataFrame(rows, columns=RAW_COLUMNS)
+        .order_by(Measurement.id),
+        RAW_COLUMNS,
+    )
     frame["value_number"] = frame["value_number"].astype(float)
     decisions = current_decisions(session, tree_set_id)
     accepted = decisions[decisions["status"] == "accepted"]
