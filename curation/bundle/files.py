@@ -1,8 +1,9 @@
 """Writing a bundle's files byte for byte the same on every run: tables as
 CSV, trees as Newick or NEXUS, the checksum list and the zip.
 
-Determinism rules: rows and columns in a fixed order, numbers in one
-format (up to 12 significant digits, ``repr``-free), '\\n' line ends, UTF-8
+Determinism rules: rows and columns in a fixed order, numbers as Python's
+shortest round-trip form (the same float always gives the same text, and
+reads back exactly), '\\n' line ends, UTF-8
 without a byte-order mark, zip entries sorted and stamped with one time.
 """
 
@@ -22,7 +23,6 @@ from curation.trees.arrays import TreeArrays, to_newick
 
 __all__ = [
     "CHECKSUM_FILE",
-    "FLOAT_FORMAT",
     "checksum_lines",
     "nexus_label",
     "read_checksums",
@@ -34,7 +34,6 @@ __all__ = [
 ]
 
 CHECKSUM_FILE = "SHA256SUMS"
-FLOAT_FORMAT = "%.12g"
 
 # NEXUS punctuation (Maddison, Swofford and Maddison 1997, Systematic
 # Biology 46:590-621): a label holding any of these, or a blank, is quoted.
@@ -44,9 +43,7 @@ _NEXUS_PUNCTUATION = re.compile(r"""[\s()\[\]{}/\\,;:=*'"`+<>-]""")
 def write_csv(frame: pd.DataFrame, path: Path) -> None:
     """Write ``frame`` as UTF-8 CSV with '\\n' line ends and fixed number
     formatting; NaN and None are written as empty fields."""
-    frame.to_csv(
-        path, index=False, lineterminator="\n", float_format=FLOAT_FORMAT, encoding="utf-8"
-    )
+    frame.to_csv(path, index=False, lineterminator="\n", encoding="utf-8")
 
 
 def write_newick(trees: list[TreeArrays], path: Path) -> None:

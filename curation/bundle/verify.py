@@ -139,10 +139,12 @@ def _check_table(folder: Path, resource: dict, problems: list[str]) -> int:
         cells = table[field["name"]]
         filled = cells != ""
         kind = field.get("type", "string")
-        if kind == "integer":
-            bad = filled & ~cells.str.fullmatch(r"[+-]?\d+")
-        elif kind == "number":
-            bad = filled & pd.to_numeric(cells.where(filled), errors="coerce").isna()
+        if kind in {"integer", "number"}:
+            # Vectorised: the text must read as a number (and a whole one).
+            number = pd.to_numeric(cells.where(filled), errors="coerce")
+            bad = filled & number.isna()
+            if kind == "integer":
+                bad |= filled & number.notna() & (number != number.round())
         elif kind == "boolean":
             bad = filled & ~cells.isin(_TRUE_FALSE)
         else:
