@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from curation.bundle.inputs import BundleInputs
+from curation.store.decisions import DECISION_COLUMNS
 
 __all__ = [
     "BundleTables",
@@ -30,6 +31,19 @@ REPAIR_ADDRESSES = {
     "tree.short_internal": {"collapse_short_branches"},
     "tree.tips_not_shared": {"prune_trees"},
 }
+
+
+FINDING_COLUMNS = [
+    "finding_id",
+    "code",
+    "severity",
+    "subject",
+    "message",
+    "action",
+    "event_action",
+    "event_id",
+    "details",
+]
 
 
 @dataclass
@@ -177,19 +191,8 @@ def _names_table(names: pd.DataFrame) -> pd.DataFrame:
         lambda t: t.isoformat() if hasattr(t, "isoformat") else t
     )
     frame["note"] = frame["note"].map(_short_note)
-    columns = [
-        "written_name",
-        "tip_label",
-        "status",
-        "stage",
-        "score",
-        "runner_up",
-        "margin",
-        "decided_by",
-        "decided_at",
-        "note",
-        "decision_id",
-    ]
+    # The decision columns, with the decision's id last (people read names.csv).
+    columns = [c for c in DECISION_COLUMNS if c != "decision_id"] + ["decision_id"]
     return frame[columns].sort_values("written_name").reset_index(drop=True)
 
 
@@ -260,33 +263,9 @@ def build_tables(inputs: BundleInputs) -> BundleTables:
             lambda d: json.dumps(d, sort_keys=True, default=str)
         )
         findings = findings.sort_values(["code", "subject", "finding_id"]).reset_index(drop=True)
-        findings = findings[
-            [
-                "finding_id",
-                "code",
-                "severity",
-                "subject",
-                "message",
-                "action",
-                "event_action",
-                "event_id",
-                "details",
-            ]
-        ]
+        findings = findings[FINDING_COLUMNS]
     else:
-        findings = pd.DataFrame(
-            columns=[
-                "finding_id",
-                "code",
-                "severity",
-                "subject",
-                "message",
-                "action",
-                "event_action",
-                "event_id",
-                "details",
-            ]
-        )
+        findings = pd.DataFrame(columns=FINDING_COLUMNS)
     return BundleTables(
         keep=keep,
         species=wide,
