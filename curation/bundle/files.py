@@ -92,9 +92,9 @@ def write_nexus(trees: list[tuple[str, TreeArrays]], order: list[str], path: Pat
     ]
     lines.append("    ;")
     for name, tree in trees:
-        rooting = "[&R] " if tree.rooted else "[&U] " if tree.rooted is False else ""
+        # to_newick writes the rooting comment ([&R] / [&U]) itself.
         text = to_newick(_without_internal_labels(tree, token))
-        lines.append(f"    TREE {nexus_label(name)} = {rooting}{text}")
+        lines.append(f"    TREE {nexus_label(name)} = {text}")
     lines.append("END;")
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
 
