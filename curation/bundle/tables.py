@@ -236,6 +236,7 @@ def _measurements_table(inputs: BundleInputs, keep: set[str], traits: set[str]) 
         "target_unit",
         "factor",
         "status",
+        "reason",
         "flags",
         "exclusion",
         "curator_excluded",

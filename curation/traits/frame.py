@@ -21,6 +21,7 @@ import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from curation.imports.measurements import MEASUREMENT_COLUMNS
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
 from curation.store.frames import select_frame
@@ -36,22 +37,9 @@ __all__ = [
     "prepare_frame",
 ]
 
-RAW_COLUMNS = [
-    "id",
-    "trait_source_id",
-    "priority",
-    "row_number",
-    "written_name",
-    "specimen_id",
-    "institution",
-    "trait",
-    "value_written",
-    "value_number",
-    "unit",
-    "sex",
-    "life_stage",
-    "status",
-]
+# The measurement's own columns as the importers store them (reason
+# included, so a value kept as unparsed says why all the way to a bundle).
+RAW_COLUMNS = ["id", "trait_source_id", "priority", *MEASUREMENT_COLUMNS]
 
 
 def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -64,17 +52,7 @@ def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame,
             Measurement.id,
             Measurement.trait_source_id,
             TraitSource.priority,
-            Measurement.row_number,
-            Measurement.written_name,
-            Measurement.specimen_id,
-            Measurement.institution,
-            Measurement.trait,
-            Measurement.value_written,
-            Measurement.value_number,
-            Measurement.unit,
-            Measurement.sex,
-            Measurement.life_stage,
-            Measurement.status,
+            *(getattr(Measurement, column) for column in MEASUREMENT_COLUMNS),
         )
         .join(TraitSource, TraitSource.id == Measurement.trait_source_id)
         .order_by(Measurement.id),
