@@ -22,7 +22,7 @@ from sqlalchemy import func, select
 from curation.bundle import BundleOptions, make_bundle, verify_bundle
 from curation.errors import ConflictError, InputError, NotFoundError
 from curation.store import Store
-from curation.store.models import LedgerEvent
+from curation.store.models import LedgerEvent, StoredFinding
 from tests.bundle_helpers import POSTERIOR, TRAITS, TREE, build_store, first_tree
 
 
@@ -357,3 +357,38 @@ def test_zip_holds_one_folder(bundled: tuple[Store, Path, int]) -> None:
     write_zip(folder, target, "bundle")
     with zipfile.ZipFile(io.BytesIO(target.read_bytes())) as archive:
         assert {n.split("/")[0] for n in archive.namelist()} == {"bundle"}
+
+
+def test_failed_replace_keeps_the_old_bundle(store: Store, tmp_path: Path) -> None:
+    tree_set_id = build_store(store, tmp_path)
+    tree_id = first_tree(store, tree_set_id)
+    make_bundle(store, tmp_path / "b", BundleOptions(tree_id=tree_id, diagnostics=False))
+    before = {p.name: p.read_bytes() for p in (tmp_path / "b").iterdir()}
+    events = ledger_count(store)
+    failing = BundleOptions(tree_id=tree_id, include_matrix=True, matrix_limit_bytes=10)
+    with pytest.raises(InputError):
+        make_bundle(store, tmp_path / "b", failing, replace=True)
+    assert {p.name: p.read_bytes() for p in (tmp_path / "b").iterdir()} == before
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith(".b")) == []
+    assert ledger_count(store) == events
+
+
+def test_findings_are_those_of_the_bundles_own_trees(store: Store, tmp_path: Path) -> None:
+    from curation.imports.trees import import_trees
+    from curation.trees import check_trees
+
+    tree_set_id = build_store(store, tmp_path)
+    other = tmp_path / "other.nwk"
+    other.write_text("((Alpha_one:0,Alpha_two:0.3):0.2,Beta_three:0.5);\n")
+    other_set = import_trees(store, other).tree_set_id
+    check_trees(store, tree_set_id)
+    check_trees(store, other_set)
+    make_bundle(store, tmp_path / "f", BundleOptions(tree_id=first_tree(store, tree_set_id)))
+    with store.reading() as session:
+        stored = session.scalars(select(StoredFinding.code)).all()
+    assert "tree.zero_length_terminal" in stored  # the other set's check found it
+    findings = pd.read_csv(tmp_path / "f" / "findings.csv")
+    checks = findings[findings["event_action"] == "check_trees"]
+    assert len(checks) > 0  # the bundle's own tree was checked too
+    # The other set's zero-length tip (a finding there) must not appear.
+    assert not checks["code"].eq("tree.zero_length_terminal").any()

@@ -219,13 +219,13 @@ def make_bundle(
     os.umask(umask)
     os.chmod(work, 0o777 & ~umask)  # a temporary folder is private; a bundle is not
     old: Path | None = None
-    zip_path: Path | None = None
+    moved = zipped = False
+    zip_path = target.with_suffix(".zip") if options.make_zip else None
+    partial_zip = target.parent / f".{target.name}.partial.zip"
     try:
         tree_file, _ = _write_files(inputs, tables, work)
         files = sorted(p.relative_to(work).as_posix() for p in work.rglob("*") if p.is_file())
-        if options.make_zip:
-            zip_path = target.with_suffix(".zip")
-            partial_zip = work.parent / f".{target.name}.partial.zip"
+        if zip_path is not None:
             write_zip(work, partial_zip, target.name)
         with store.transaction() as session:
             event = record_event(
@@ -237,20 +237,25 @@ def make_bundle(
                 who=who,
             )
             event_id = event.id
+            # Moved into place inside the transaction: if the event cannot
+            # be stored, the handler below takes the bundle away again.
             if target.exists():
                 old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
                 os.replace(target, old / "bundle")
             os.replace(work, target)
+            moved = True
             if zip_path is not None:
                 os.replace(partial_zip, zip_path)
+                zipped = True
     except BaseException:
-        shutil.rmtree(work, ignore_errors=True)
-        if old is not None and not target.exists():
+        shutil.rmtree(target if moved else work, ignore_errors=True)
+        partial_zip.unlink(missing_ok=True)
+        if zipped and zip_path is not None:
+            zip_path.unlink(missing_ok=True)
+        if old is not None:
             os.replace(old / "bundle", target)
+            shutil.rmtree(old, ignore_errors=True)
         raise
-    finally:
-        if zip_path is None and options.make_zip:
-            (work.parent / f".{target.name}.partial.zip").unlink(missing_ok=True)
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
     accounting = tables.accounting

@@ -8,7 +8,7 @@ options.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Literal
 
 import pandas as pd
@@ -102,7 +102,6 @@ class BundleInputs:
     repairs: list[dict[str, Any]]
     exclusions: pd.DataFrame
     events: pd.DataFrame
-    trait_info: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def decision_tree_set(session: Any, tree_set: TreeSet) -> TreeSet:
@@ -195,7 +194,8 @@ def _curated(
 
 def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
     """The findings of the latest event of each kind of check (a later
-    check of the same thing supersedes an earlier one)."""
+    check of the same thing supersedes an earlier one), leaving out checks
+    of tree sets (and their trees) other than ``tree_set_ids``."""
     rows = session.execute(
         select(
             StoredFinding.id,
@@ -226,7 +226,15 @@ def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
     if frame.empty:
         return frame
     latest = frame.groupby(["event_action", "event_subject"])["event_id"].transform("max")
-    return frame[frame["event_id"] == latest].reset_index(drop=True)
+    frame = frame[frame["event_id"] == latest]
+    tree_ids = set(session.scalars(select(Tree.id).where(Tree.tree_set_id.in_(tree_set_ids))).all())
+    named = frame["event_subject"].str.extract(r"^tree (set )?(\d+)$")
+    number = pd.to_numeric(named[1], errors="coerce")
+    about_set = named[0].notna()
+    elsewhere = (about_set & ~number.isin(tree_set_ids)) | (
+        ~about_set & number.notna() & ~number.isin(tree_ids)
+    )
+    return frame[~elsewhere].reset_index(drop=True)
 
 
 def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
@@ -302,7 +310,8 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
             ]
         )
         repairs = _repair_chain(session, tree_set)
-        findings = _findings(session, {tree_set.id, original.id})
+        chain = {tree_set.id, original.id} | {r["tree_set_id"] for r in repairs}
+        findings = _findings(session, chain)
         tree_set_info = {
             "id": tree_set.id,
             "name": tree_set.name,

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from curation.bundle.inputs import BundleInputs
+from curation.names.decisions import note_info
 from curation.store.decisions import DECISION_COLUMNS
 
 __all__ = [
@@ -166,7 +167,8 @@ def _accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd
         elif row.status == "accepted":
             status, reason = "excluded", f"its tip {row.tip_label!r} is not on the bundle's tree"
         elif row.status == "rejected":
-            status, reason = "excluded", f"rejected by {row.decided_by}: {row.note or 'no note'}"
+            note = _short_note(row.note) or "no note"
+            status, reason = "excluded", f"rejected by {row.decided_by}: {note}"
         else:
             status, reason = "excluded", "waiting for review (pending)"
         rows.append(
@@ -176,7 +178,7 @@ def _accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd
                 "tip_label": row.tip_label if row.status == "accepted" else None,
                 "status": status,
                 "in_bundle": row.status == "accepted" and row.tip_label in keep,
-                "reason": reason if not reason.startswith("{") else "see names.csv",
+                "reason": reason,
             }
         )
     frame = pd.DataFrame(
@@ -197,16 +199,10 @@ def _names_table(names: pd.DataFrame) -> pd.DataFrame:
 
 
 def _short_note(note: object) -> str:
-    """A decision's note for people: its text, without machine candidates."""
-    if not isinstance(note, str) or not note:
-        return ""
-    if note.startswith("{"):
-        try:
-            data = json.loads(note)
-        except ValueError:
-            return note
-        return str(data.get("note") or data.get("text") or "")
-    return note
+    """A decision's note for people: its text or reason, without the
+    machine-readable candidates."""
+    info = note_info(note if isinstance(note, str) else None)
+    return str(info.get("text") or info.get("reason") or "")
 
 
 def _measurements_table(inputs: BundleInputs, keep: set[str], traits: set[str]) -> pd.DataFrame:
