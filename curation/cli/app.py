@@ -12,7 +12,16 @@ from typing import Annotated
 import typer
 from rich.console import Console
 
-__all__ = ["app", "console", "StoreOption", "UserOption"]
+__all__ = [
+    "CitationOption",
+    "LabelOption",
+    "LicenceOption",
+    "NotesOption",
+    "StoreOption",
+    "UserOption",
+    "app",
+    "console",
+]
 
 app = typer.Typer(
     name="tipledger",
@@ -49,3 +58,15 @@ UserOption = Annotated[
         show_envvar=True,
     ),
 ]
+
+# What a user says about a source file when importing it (SourceInfo).
+LabelOption = Annotated[
+    str, typer.Option("--label", help="Short name of the source (default: the file name).")
+]
+CitationOption = Annotated[
+    str, typer.Option("--citation", help="Where the source was published or came from.")
+]
+LicenceOption = Annotated[
+    str, typer.Option("--licence", help="Terms the source may be used under (e.g. CC-BY-4.0).")
+]
+NotesOption = Annotated[str, typer.Option("--notes", help="Anything else worth recording.")]

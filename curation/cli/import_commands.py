@@ -6,23 +6,21 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
-from curation.cli.app import StoreOption, UserOption, app, console
+from curation.cli.app import (
+    CitationOption,
+    LabelOption,
+    LicenceOption,
+    NotesOption,
+    StoreOption,
+    UserOption,
+    app,
+    console,
+)
+from curation.cli.output import progress_bar
 from curation.imports.common import SourceInfo
 from curation.imports.trees import import_trees
 from curation.store import open_store
-
-LabelOption = Annotated[
-    str, typer.Option("--label", help="Short name of the source (default: the file name).")
-]
-CitationOption = Annotated[
-    str, typer.Option("--citation", help="Where the source was published or came from.")
-]
-LicenceOption = Annotated[
-    str, typer.Option("--licence", help="Terms the source may be used under (e.g. CC-BY-4.0).")
-]
-NotesOption = Annotated[str, typer.Option("--notes", help="Anything else worth recording.")]
 
 
 @app.command("import-trees")
@@ -54,16 +52,7 @@ def import_trees_command(
     Example: tipledger import-trees posterior.nex --burn-in 100 --keep-every 10
     """
     info = SourceInfo(label=label, citation=citation, licence=licence, notes=notes)
-    columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn())
-    with (
-        open_store(store) as opened,
-        Progress(*columns, TimeElapsedColumn(), console=console, transient=True) as bar,
-    ):
-        task = bar.add_task(f"importing {path.name}", total=None)
-
-        def progress(done: int, total: int) -> None:
-            bar.update(task, completed=done, total=total)
-
+    with open_store(store) as opened, progress_bar(f"importing {path.name}") as progress:
         result = import_trees(
             opened,
             path,

@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from typing import Any
 
 import pandas as pd
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from curation.cli.app import console
 
-__all__ = ["print_counts", "print_frame"]
+__all__ = ["print_counts", "print_frame", "progress_bar"]
 
 
 def print_frame(title: str, frame: pd.DataFrame, *, limit: int = 50) -> None:
@@ -35,3 +38,23 @@ def print_counts(counts: dict[str, Any]) -> None:
             console.print(f"{key.replace('_', ' ')}: {shown}")
         else:
             console.print(f"{key.replace('_', ' ')}: {value}")
+
+
+@contextmanager
+def progress_bar(what: str) -> Iterator[Callable[[int, int], None]]:
+    """Yield a ``progress(done, total)`` callback for a library function,
+    drawn as a bar (cleared when done) once the total is known."""
+    with Progress(
+        TextColumn(what),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        console=console,
+        transient=True,
+    ) as bar:
+        task = bar.add_task(what, total=None)
+
+        def update(done: int, total: int) -> None:
+            bar.update(task, completed=done, total=total)
+
+        yield update

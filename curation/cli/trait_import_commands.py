@@ -2,20 +2,25 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
-from curation.cli.app import StoreOption, UserOption, app, console
-from curation.cli.output import print_counts
+from curation.cli.app import (
+    CitationOption,
+    LabelOption,
+    LicenceOption,
+    NotesOption,
+    StoreOption,
+    UserOption,
+    app,
+    console,
+)
+from curation.cli.output import print_counts, progress_bar
 from curation.errors import InputError
 from curation.imports.common import ImportResult, SourceInfo
 from curation.imports.dwca import import_darwin_core
-from curation.imports.measurements import ProgressCallback
 from curation.imports.synonyms import import_synonyms
 from curation.imports.traits import ROLES, import_traits
 from curation.store import open_store
@@ -25,10 +30,6 @@ __all__ = ["parse_pairs"]
 FileArgument = Annotated[
     Path, typer.Argument(help="The file to import.", exists=False, dir_okay=False)
 ]
-LabelOption = Annotated[str, typer.Option("--label", help="A short name for the source.")]
-CitationOption = Annotated[str, typer.Option("--citation", help="How to cite the source.")]
-LicenceOption = Annotated[str, typer.Option("--licence", help="The source's licence.")]
-NotesOption = Annotated[str, typer.Option("--notes", help="Free notes about the source.")]
 PriorityOption = Annotated[
     int,
     typer.Option(
@@ -69,25 +70,6 @@ def parse_pairs(values: list[str] | None, option: str) -> dict[str, str]:
             )
         result[key.strip()] = rest.strip()
     return result
-
-
-@contextmanager
-def _progress_bar(what: str) -> Iterator[ProgressCallback]:
-    """Yield a progress callback that draws a bar once the rows are counted."""
-    with Progress(
-        TextColumn(what),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeElapsedColumn(),
-        console=console,
-        transient=True,
-    ) as bar:
-        task = bar.add_task(what, total=None)
-
-        def update(done: int, total: int) -> None:
-            bar.update(task, completed=done, total=total)
-
-        yield update
 
 
 def _report(result: ImportResult) -> None:
@@ -155,7 +137,7 @@ def import_traits_command(
 
     Example: tipledger import-traits museum.csv --decimal ,
     """
-    with open_store(store) as opened, _progress_bar("Storing measurements") as progress:
+    with open_store(store) as opened, progress_bar("Storing measurements") as progress:
         result = import_traits(
             opened,
             path,
@@ -193,7 +175,7 @@ def import_darwin_core_command(
 
     Example: tipledger import-darwin-core collection-dwca.zip --priority 10
     """
-    with open_store(store) as opened, _progress_bar("Storing measurements") as progress:
+    with open_store(store) as opened, progress_bar("Storing measurements") as progress:
         result = import_darwin_core(
             opened,
             path,
@@ -236,7 +218,7 @@ def import_synonyms_command(
 
     Example: tipledger import-synonyms synonyms.csv --columns accepted=current
     """
-    with open_store(store) as opened, _progress_bar("Storing synonyms") as progress:
+    with open_store(store) as opened, progress_bar("Storing synonyms") as progress:
         result = import_synonyms(
             opened,
             path,
