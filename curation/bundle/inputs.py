@@ -30,7 +30,39 @@ from curation.store.models import (
 from curation.trees.arrays import TreeArrays
 from curation.trees.stored import get_tree_set, load_tree, load_tree_set
 
-__all__ = ["BundleInputs", "BundleOptions", "decision_tree_set", "gather_bundle_inputs"]
+__all__ = [
+    "MEASUREMENT_FIELDS",
+    "BundleInputs",
+    "BundleOptions",
+    "decision_tree_set",
+    "gather_bundle_inputs",
+]
+
+#: The columns of a measurement in a bundle (``measurements_used.csv`` adds
+#: ``in_species_value``), in the order written.
+MEASUREMENT_FIELDS = (
+    "measurement_id",
+    "tip_label",
+    "trait",
+    "written_name",
+    "source_id",
+    "trait_source",
+    "row_number",
+    "specimen_id",
+    "institution",
+    "sex",
+    "life_stage",
+    "value_written",
+    "unit",
+    "value",
+    "target_unit",
+    "factor",
+    "status",
+    "reason",
+    "flags",
+    "exclusion",
+    "curator_excluded",
+)
 
 
 class BundleOptions(BaseModel):
@@ -173,7 +205,7 @@ def _curated(
 
     frame = measurements_frame(store, decision_set_id)
     if options.traits:
-        present = set(frame["trait"])
+        present = set(frame["trait"].unique())
         unknown = [t for t in options.traits if t not in present]
         if unknown:
             raise InputError(
@@ -184,11 +216,24 @@ def _curated(
             )
         frame = frame[frame["trait"].isin(options.traits)]
     species = aggregate_species(frame, traits=options.traits, policy=options.policy)
-    measurements = frame.rename(columns={"id": "measurement_id", "target": "target_unit"}).merge(
-        trait_sources, on="trait_source_id", how="left"
+    # Only the columns a bundle writes are kept: the frame of the traits
+    # stage has many more, and a bundle may hold a million measurements.
+    source = trait_sources.set_index("trait_source_id")
+    source_of = frame["trait_source_id"]
+    measurements = pd.DataFrame(
+        {
+            "measurement_id": frame["id"],
+            "source_id": source_of.map(source["source_id"]),
+            "trait_source": source_of.map(source["trait_source"]),
+            "target_unit": frame["target"],
+            "curator_excluded": frame["review"].eq("exclude"),
+            "used": ~frame["excluded"].astype(bool),
+        }
     )
-    measurements["used"] = ~measurements["excluded"].astype(bool)
-    measurements["curator_excluded"] = measurements["review"].eq("exclude")
+    for column in MEASUREMENT_FIELDS:
+        if column not in measurements:
+            measurements[column] = frame[column]
+    measurements = measurements[[*MEASUREMENT_FIELDS, "used"]]
     return species, measurements.reset_index(drop=True)
 
 

@@ -25,6 +25,7 @@ DEPENDENCIES = [
     "tipledger",
     "numpy",
     "pandas",
+    "pyarrow",
     "scipy",
     "dendropy",
     "rapidfuzz",
@@ -185,8 +186,7 @@ def provenance(
     decision, exclusion and repair that shaped the bundle, the options, the
     software versions, the store and the creation time (SOURCE_DATE_EPOCH
     when set)."""
-    used_names = set(inputs.names["written_name"])
-    decisions = inputs.names[inputs.names["written_name"].isin(used_names)]
+    decisions = inputs.names
     decision_records = [
         {
             "decision_id": int(r.decision_id),
@@ -202,8 +202,8 @@ def provenance(
         }
         for r in decisions.itertuples(index=False)
     ]
-    keep_ids = set(tables.measurements["measurement_id"])
-    exclusions = inputs.exclusions[inputs.exclusions["measurement_id"].isin(keep_ids)]
+    kept = inputs.exclusions["measurement_id"].isin(tables.measurements["measurement_id"])
+    exclusions = inputs.exclusions[kept]
     event_ids = sorted(
         {int(e) for e in inputs.sources["event_id"].dropna()}
         | {int(r["event_id"]) for r in inputs.repairs if r["event_id"] is not None}

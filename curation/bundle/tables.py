@@ -5,13 +5,14 @@ written name."""
 
 from __future__ import annotations
 
+import itertools
 import json
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from curation.bundle.inputs import BundleInputs
+from curation.bundle.inputs import MEASUREMENT_FIELDS, BundleInputs
 from curation.names.decisions import note_info
 from curation.store.decisions import DECISION_COLUMNS
 
@@ -107,8 +108,8 @@ def finding_actions(inputs: BundleInputs, findings: pd.DataFrame) -> pd.Series:
     reported and the data used as they are."""
     repairs = {r["repair"] for r in inputs.repairs}
     m = inputs.measurements
-    counted = set(m.loc[m["used"], "measurement_id"])
-    by_curator = set(m.loc[m["curator_excluded"], "measurement_id"])
+    counted = set(m.loc[m["used"], "measurement_id"].to_numpy().tolist())
+    by_curator = set(m.loc[m["curator_excluded"], "measurement_id"].to_numpy().tolist())
     actions = []
     for code, details in zip(findings["code"], findings["details"], strict=True):
         details = details if isinstance(details, dict) else {}
@@ -133,56 +134,82 @@ def finding_actions(inputs: BundleInputs, findings: pd.DataFrame) -> pd.Series:
     return pd.Series(actions, index=findings.index, dtype=object)
 
 
-def _accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd.DataFrame:
-    with_data = set(inputs.species["tip_label"]) if not inputs.species.empty else set()
+ACCOUNTING_COLUMNS = ["kind", "name", "tip_label", "status", "in_bundle", "reason"]
+
+
+def _tip_accounting(
+    inputs: BundleInputs, all_tips: list[str], keep: set[str], with_data: set[str]
+) -> pd.DataFrame:
+    tips = pd.Series(all_tips, dtype=object)
     names = inputs.names
-    reached = (
-        names[names["status"] == "accepted"]
-        .groupby("tip_label")["written_name"]
-        .agg(lambda s: "; ".join(sorted(s)))
+    reached = set(names.loc[names["status"] == "accepted", "tip_label"])
+    has_data = tips.isin(with_data).to_numpy(dtype=bool)
+    in_bundle = tips.isin(keep).to_numpy(dtype=bool)
+    reason = np.select(
+        [has_data, tips.isin(reached).to_numpy(dtype=bool)],
+        ["has trait data", "names match but no usable value"],
+        "no written name matches this tip",
+    ).astype(object)
+    pruned = ~(in_bundle | has_data)
+    reason[pruned] = reason[pruned] + "; pruned"
+    return pd.DataFrame(
+        {
+            "kind": "tip",
+            "name": tips,
+            "tip_label": tips,
+            "status": np.where(has_data, "matched", "missing data"),
+            "in_bundle": in_bundle,
+            "reason": reason,
+        },
+        columns=ACCOUNTING_COLUMNS,
     )
-    rows = []
-    for tip in all_tips:
-        if tip in with_data:
-            status, reason = "matched", "has trait data"
-        elif tip in reached.index:
-            status, reason = "missing data", "names match but no usable value"
-        else:
-            status, reason = "missing data", "no written name matches this tip"
-        rows.append(
-            {
-                "kind": "tip",
-                "name": tip,
-                "tip_label": tip,
-                "status": status,
-                "in_bundle": tip in keep,
-                "reason": reason if tip in keep or tip in with_data else reason + "; pruned",
-            }
-        )
-    tip_set = set(all_tips)
-    for row in names.itertuples(index=False):
-        if row.status == "accepted" and row.tip_label in tip_set:
-            status = "matched" if row.tip_label in with_data else "missing data"
-            reason = f"{row.stage} match, decided by {row.decided_by}"
-        elif row.status == "accepted":
-            status, reason = "excluded", f"its tip {row.tip_label!r} is not on the bundle's tree"
-        elif row.status == "rejected":
-            note = _short_note(row.note) or "no note"
-            status, reason = "excluded", f"rejected by {row.decided_by}: {note}"
-        else:
-            status, reason = "excluded", "waiting for review (pending)"
-        rows.append(
-            {
-                "kind": "written name",
-                "name": row.written_name,
-                "tip_label": row.tip_label if row.status == "accepted" else None,
-                "status": status,
-                "in_bundle": row.status == "accepted" and row.tip_label in keep,
-                "reason": reason,
-            }
-        )
-    frame = pd.DataFrame(
-        rows, columns=["kind", "name", "tip_label", "status", "in_bundle", "reason"]
+
+
+def _name_accounting(
+    inputs: BundleInputs, all_tips: list[str], keep: set[str], with_data: set[str]
+) -> pd.DataFrame:
+    names = inputs.names.reset_index(drop=True)
+    status = names["status"].to_numpy(dtype=object)
+    tip = names["tip_label"].astype(object)
+    accepted = status == "accepted"
+    on_tree = accepted & tip.isin(set(all_tips)).to_numpy(dtype=bool)
+    rejected = status == "rejected"
+    reason = np.full(len(names), "waiting for review (pending)", dtype=object)
+    decided_by = names["decided_by"].astype(str)
+    reason[on_tree] = (names["stage"].astype(str) + " match, decided by " + decided_by)[on_tree]
+    elsewhere = accepted & ~on_tree
+    # Only the few names that are not plainly matched need text of their own.
+    reason[elsewhere] = [
+        f"its tip {label!r} is not on the bundle's tree" for label in tip[elsewhere]
+    ]
+    reason[rejected] = [
+        f"rejected by {who}: {_short_note(note) or 'no note'}"
+        for who, note in zip(decided_by[rejected], names["note"][rejected], strict=True)
+    ]
+    has_data = tip.isin(with_data).to_numpy(dtype=bool)
+    return pd.DataFrame(
+        {
+            "kind": "written name",
+            "name": names["written_name"],
+            "tip_label": tip.where(accepted, None),
+            "status": np.where(on_tree, np.where(has_data, "matched", "missing data"), "excluded"),
+            "in_bundle": accepted & tip.isin(keep).to_numpy(dtype=bool),
+            "reason": reason,
+        },
+        columns=ACCOUNTING_COLUMNS,
+    )
+
+
+def _accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd.DataFrame:
+    """Every tip and every written name with its outcome (matched, missing
+    data, excluded) and why, sorted by kind then name."""
+    with_data = set(inputs.species["tip_label"].unique()) if not inputs.species.empty else set()
+    frame = pd.concat(
+        [
+            _tip_accounting(inputs, all_tips, keep, with_data),
+            _name_accounting(inputs, all_tips, keep, with_data),
+        ],
+        ignore_index=True,
     )
     return frame.sort_values(["kind", "name"], kind="stable").reset_index(drop=True)
 
@@ -207,38 +234,19 @@ def _short_note(note: object) -> str:
 
 def _measurements_table(inputs: BundleInputs, keep: set[str], traits: set[str]) -> pd.DataFrame:
     m = inputs.measurements
-    m = m[m["tip_label"].isin(keep) & m["trait"].isin(traits)].copy()
-    used_ids: set[int] = set()
-    if "measurement_ids" in inputs.species:
-        for ids in inputs.species["measurement_ids"]:
-            if isinstance(ids, (list, tuple, np.ndarray)):
-                used_ids.update(int(i) for i in ids)
-    m["in_species_value"] = m["measurement_id"].isin(used_ids)
-    columns = [
-        "measurement_id",
-        "tip_label",
-        "trait",
-        "written_name",
-        "source_id",
-        "trait_source",
-        "row_number",
-        "specimen_id",
-        "institution",
-        "sex",
-        "life_stage",
-        "value_written",
-        "unit",
-        "value",
-        "target_unit",
-        "factor",
-        "status",
-        "reason",
-        "flags",
-        "exclusion",
-        "curator_excluded",
-        "in_species_value",
-    ]
-    return m[columns].sort_values(["tip_label", "trait", "measurement_id"]).reset_index(drop=True)
+    m = m[m["tip_label"].isin(keep) & m["trait"].isin(traits)]
+    lists = inputs.species.get("measurement_ids", pd.Series(dtype=object))
+    used_ids = np.fromiter(
+        itertools.chain.from_iterable(i for i in lists if isinstance(i, (list, tuple, np.ndarray))),
+        dtype=np.int64,
+    )
+    m = m[list(MEASUREMENT_FIELDS)].assign(in_species_value=m["measurement_id"].isin(used_ids))
+    # Sorted by tip, trait and id through integer codes (a string sort of a
+    # million rows is the slow part otherwise).
+    tip_code = pd.factorize(m["tip_label"], sort=True)[0]
+    trait_code = pd.factorize(m["trait"], sort=True)[0]
+    order = np.lexsort((m["measurement_id"].to_numpy(), trait_code, tip_code))
+    return m.iloc[order].reset_index(drop=True)
 
 
 def build_tables(inputs: BundleInputs) -> BundleTables:
@@ -250,7 +258,11 @@ def build_tables(inputs: BundleInputs) -> BundleTables:
     """
     all_tips = sorted(set().union(*(set(a.tip_labels) for _, _, a in inputs.trees)))
     species = inputs.species[inputs.species["tip_label"].isin(all_tips)]
-    keep = sorted(set(species["tip_label"])) if inputs.options.missing == "prune" else all_tips
+    keep = (
+        sorted(set(species["tip_label"].unique()))
+        if inputs.options.missing == "prune"
+        else all_tips
+    )
     traits = _trait_frame(inputs.species)
     wide = _wide_species(species, traits, keep)
     findings = inputs.findings.copy()
