@@ -392,3 +392,33 @@ def test_findings_are_those_of_the_bundles_own_trees(store: Store, tmp_path: Pat
     assert len(checks) > 0  # the bundle's own tree was checked too
     # The other set's zero-length tip (a finding there) must not appear.
     assert not checks["code"].eq("tree.zero_length_terminal").any()
+
+
+def test_verify_catches_a_cell_of_the_wrong_type(bundled: tuple[Store, Path, int]) -> None:
+    _, folder, _ = bundled
+    path = folder / "species_traits.csv"
+    header, first, *rest = path.read_text().splitlines()
+    cells = first.split(",")
+    cells[header.split(",").index("mass")] = "heavy"
+    cells[header.split(",").index("mass_n")] = "2.5"
+    path.write_text("\n".join([header, ",".join(cells), *rest]) + "\n")
+    _refresh_checksums(folder)
+    problems = verify_bundle(folder).problems
+    # Table Schema v1: a number field holds a number, an integer field digits.
+    assert any("'heavy' is not of type number" in p for p in problems), problems
+    assert any("'2.5' is not of type integer" in p for p in problems), problems
+
+
+def test_verify_catches_a_repeated_tip_and_a_ragged_row(bundled: tuple[Store, Path, int]) -> None:
+    _, folder, _ = bundled
+    species = folder / "species_traits.csv"
+    lines = species.read_text().splitlines()
+    species.write_text("\n".join([*lines, lines[1]]) + "\n")
+    with (folder / "names.csv").open("a") as handle:
+        handle.write("only,two\n")
+    _refresh_checksums(folder)
+    problems = verify_bundle(folder).problems
+    tip = lines[1].split(",")[0]
+    assert any(f"repeats tip(s): {tip}" in p for p in problems), problems
+    assert any("primary key 'tip_label' repeats" in p for p in problems), problems
+    assert any("names.csv cannot be read as CSV" in p for p in problems), problems

@@ -6,13 +6,18 @@ Every check runs and every problem is listed; nothing stops at the first.
 
 from __future__ import annotations
 
+import csv
 import json
 import os
 import tempfile
 import zipfile
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
 from pydantic import BaseModel
 
 from curation.bundle.files import CHECKSUM_FILE, read_checksums, sha256_file
@@ -84,23 +89,22 @@ def _tree_tips(folder: Path, problems: list[str]) -> list[list[str]] | None:
 def _check_agreement(folder: Path, problems: list[str]) -> tuple[int, int]:
     trees = _tree_tips(folder, problems)
     try:
-        table = pd.read_csv(
-            folder / "species_traits.csv", dtype={"tip_label": str}, keep_default_na=False
-        )
-    except (OSError, ValueError, pd.errors.ParserError) as exc:
+        table = read_text_table(folder / "species_traits.csv")
+    except (OSError, UnicodeDecodeError, pa.ArrowInvalid) as exc:
         problems.append(f"species_traits.csv cannot be read: {exc}")
         return 0, 0
-    if "tip_label" not in table:
+    if "tip_label" not in table.column_names:
         problems.append("species_traits.csv has no tip_label column")
-        return 0, len(table)
-    keys = list(table["tip_label"])
-    repeated = sorted({k for k in keys if keys.count(k) > 1}) if len(set(keys)) != len(keys) else []
+        return 0, table.num_rows
+    keys = pd.Series(table["tip_label"].to_numpy(zero_copy_only=False), dtype=object)
+    repeated = sorted(set(keys[keys.duplicated()]))
     if repeated:
         problems.append(f"species_traits.csv repeats tip(s): {', '.join(repeated[:10])}")
     if trees is None:
         return 0, len(keys)
+    in_table = set(keys)
     for number, tips in enumerate(trees, start=1):
-        on_tree, in_table = set(tips), set(keys)
+        on_tree = set(tips)
         if len(tips) != len(on_tree):
             problems.append(f"tree {number} repeats tip labels")
         for label in sorted(on_tree - in_table)[:20]:
@@ -113,11 +117,52 @@ def _check_agreement(folder: Path, problems: list[str]) -> tuple[int, int]:
 # Above this many table rows the row-by-row frictionless validation (pure
 # Python) would take minutes, so only the vectorised checks run.
 FULL_VALIDATION_ROWS = 50_000
-_TRUE_FALSE = {"true", "false", "True", "False", "TRUE", "FALSE", "1", "0"}
+_TRUE_FALSE = ["true", "false", "True", "False", "TRUE", "FALSE", "1", "0"]
+# The lexical forms of Table Schema numbers and integers (Frictionless
+# Table Schema v1, "number" and "integer" types); infinities and NaN as the
+# specification spells them or as Python does.
+_NUMBER = r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$|^[+-]?(inf|nan)$"
+_INTEGER = r"^[+-]?\d+$"
+
+
+def read_text_table(path: Path, columns: list[str] | None = None) -> pa.Table:
+    """Read a bundle CSV with every field as text (an empty field is an
+    empty string, never null), keeping only ``columns`` when given.
+
+    Raises:
+        OSError, UnicodeDecodeError, pyarrow.ArrowInvalid: the file cannot
+            be read as CSV (unequal rows, bad UTF-8, no header).
+    """
+    with path.open(encoding="utf-8", newline="") as handle:
+        header = next(csv.reader(handle), [])
+    return pacsv.read_csv(
+        path,
+        parse_options=pacsv.ParseOptions(newlines_in_values=True),
+        convert_options=pacsv.ConvertOptions(
+            column_types=dict.fromkeys(header, pa.string()),
+            include_columns=columns,
+            strings_can_be_null=False,
+            quoted_strings_can_be_null=False,
+        ),
+    )
+
+
+def _bad_cells(cells: pa.ChunkedArray, kind: str) -> np.ndarray:
+    """Row indexes (from 0) of filled cells that do not fit ``kind``."""
+    if kind == "integer":
+        fits = pc.match_substring_regex(cells, _INTEGER)
+    elif kind == "number":
+        fits = pc.match_substring_regex(cells, _NUMBER, ignore_case=True)
+    elif kind == "boolean":
+        fits = pc.is_in(cells, pa.array(_TRUE_FALSE))
+    else:
+        return np.zeros(0, dtype=np.int64)
+    bad = pc.and_(pc.not_equal(cells, ""), pc.invert(fits))
+    return np.flatnonzero(bad.to_numpy(zero_copy_only=False))
 
 
 def _check_table(folder: Path, resource: dict, problems: list[str]) -> int:
-    """Check one CSV resource against its Table Schema with pandas: the
+    """Check one CSV resource against its Table Schema, vectorised: the
     header names the fields in order, every cell fits its field's type, and
     the primary key is unique and filled. Returns the number of rows."""
     name = resource.get("name", "?")
@@ -126,42 +171,31 @@ def _check_table(folder: Path, resource: dict, problems: list[str]) -> int:
         problems.append(f"resource {name!r}: its file {resource.get('path')!r} is missing")
         return 0
     try:
-        table = pd.read_csv(path, dtype=str, keep_default_na=False)
-    except (ValueError, pd.errors.ParserError, UnicodeDecodeError) as exc:
+        table = read_text_table(path)
+    except (OSError, UnicodeDecodeError, pa.ArrowInvalid) as exc:
         problems.append(f"{path.name} cannot be read as CSV: {exc}")
         return 0
     fields = resource.get("schema", {}).get("fields", [])
     names = [f.get("name") for f in fields]
-    if list(table.columns) != names:
-        problems.append(f"{path.name}: its header {list(table.columns)} differs from its schema")
-        return len(table)
+    if table.column_names != names:
+        problems.append(f"{path.name}: its header {table.column_names} differs from its schema")
+        return table.num_rows
     for field in fields:
         cells = table[field["name"]]
-        filled = cells != ""
         kind = field.get("type", "string")
-        if kind in {"integer", "number"}:
-            # Vectorised: the text must read as a number (and a whole one).
-            number = pd.to_numeric(cells.where(filled), errors="coerce")
-            bad = filled & number.isna()
-            if kind == "integer":
-                bad |= filled & number.notna() & (number != number.round())
-        elif kind == "boolean":
-            bad = filled & ~cells.isin(_TRUE_FALSE)
-        else:
-            continue
-        for row in bad[bad].index[:5]:
+        for row in _bad_cells(cells, kind)[:5]:
             problems.append(
                 f"{path.name} row {row + 2}, field {field['name']!r}: "
-                f"{cells[row]!r} is not of type {kind}"
+                f"{cells[int(row)].as_py()!r} is not of type {kind}"
             )
     for key in resource.get("schema", {}).get("primaryKey", []) or []:
-        if key in table:
-            repeated = table[key][table[key].duplicated()]
-            for value in repeated.head(5):
+        if key in table.column_names:
+            values = pd.Series(table[key].to_numpy(zero_copy_only=False), dtype=object)
+            for value in values[values.duplicated()].head(5):
                 problems.append(f"{path.name}: primary key {key!r} repeats {value!r}")
-            if (table[key] == "").any():
+            if (values == "").any():
                 problems.append(f"{path.name}: primary key {key!r} has empty cells")
-    return len(table)
+    return table.num_rows
 
 
 def _check_package(folder: Path, problems: list[str]) -> None:
@@ -204,8 +238,12 @@ def _check_provenance(folder: Path, problems: list[str]) -> None:
     }
     used = folder / "measurements_used.csv"
     if used.is_file():
-        frame = pd.read_csv(used, usecols=["source_id"], dtype=str, keep_default_na=False)
-        for source in sorted(set(frame["source_id"]) - listed):
+        try:
+            cited = set(read_text_table(used, ["source_id"])["source_id"].unique().to_pylist())
+        except (OSError, UnicodeDecodeError, KeyError, pa.ArrowInvalid) as exc:
+            problems.append(f"measurements_used.csv: its source ids cannot be read: {exc}")
+            cited = set()
+        for source in sorted(cited - listed):
             problems.append(
                 f"measurements_used.csv cites source {source} "
                 "that provenance.json does not list with its sha256"
