@@ -16,7 +16,14 @@ from curation.bundle.inputs import BundleInputs
 from curation.bundle.tables import BundleTables
 from curation.trees.arrays import TreeArrays
 
-__all__ = ["STAGE_COLOURS", "MAX_DRAWN_TIPS", "render_report", "tree_svg", "histogram_svg"]
+__all__ = [
+    "MAX_DRAWN_TIPS",
+    "STAGE_COLOURS",
+    "finding_summary",
+    "histogram_svg",
+    "render_report",
+    "tree_svg",
+]
 
 MAX_DRAWN_TIPS = 2000
 STAGE_COLOURS = {
@@ -177,6 +184,19 @@ def _table(frame: pd.DataFrame, limit: int = 300) -> str:
     return f"<table><tr>{head}</tr>{''.join(rows)}</table>{more}"
 
 
+def finding_summary(findings: pd.DataFrame) -> pd.DataFrame:
+    """Return one row per kind of finding and what was done about it: code,
+    severity, action and how many findings, errors first."""
+    columns = ["code", "severity", "action", "findings"]
+    if findings.empty:
+        return pd.DataFrame(columns=columns)
+    counts = findings.groupby(["code", "severity", "action"], sort=True).size()
+    frame = counts.rename("findings").reset_index()
+    rank = frame["severity"].map({"error": 0, "warning": 1}).fillna(2)
+    order = np.lexsort((frame["code"].to_numpy(), rank.to_numpy()))
+    return frame.iloc[order].reset_index(drop=True)[columns]
+
+
 def render_report(
     inputs: BundleInputs,
     tables: BundleTables,
@@ -192,7 +212,7 @@ def render_report(
     for row in accepted.sort_values("written_name").itertuples(index=False):
         stage = "reviewed" if row.stage in {"review", "sheet", "manual"} else row.stage
         tip_stage.setdefault(row.tip_label, stage)
-    with_data = set(inputs.species["tip_label"]) if not inputs.species.empty else set()
+    with_data = set(inputs.species["tip_label"].unique()) if not inputs.species.empty else set()
     summary = pd.DataFrame(
         [
             ("tips on the tree", len(tips)),
@@ -242,7 +262,7 @@ def render_report(
         sections.append(f"<p>The bundle holds {len(trees)} trees; the first is drawn.</p>")
     sections.append("<h2>Trait distributions</h2>")
     measured = tables.measurements
-    flagged = set(measured.loc[measured["flags"].fillna("") != "", "measurement_id"])
+    flagged = measured.loc[measured["flags"].fillna("") != "", "measurement_id"]
     value_column = "value"
     for row in tables.traits.itertuples(index=False):
         if row.kind == "discrete":
@@ -286,6 +306,9 @@ def render_report(
         sections.append("<p>Not computed for this bundle.</p>")
     sections += [
         "<h2>Findings and what was done</h2>",
+        "<p>By kind:</p>",
+        _table(finding_summary(tables.findings)),
+        "<p>Each finding:</p>",
         _table(tables.findings.drop(columns=["details"], errors="ignore")),
         "<h2>Repairs applied</h2>",
         _table(pd.DataFrame(inputs.repairs).drop(columns=["parameters"], errors="ignore")),
