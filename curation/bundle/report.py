@@ -13,19 +13,24 @@ import numpy as np
 import pandas as pd
 
 from curation.bundle.inputs import BundleInputs
+from curation.bundle.overview import TreeOverview, overview_tree
 from curation.bundle.tables import BundleTables
 from curation.trees.arrays import TreeArrays
 
 __all__ = [
     "MAX_DRAWN_TIPS",
+    "OVERVIEW_CLADES",
     "STAGE_COLOURS",
     "finding_summary",
     "histogram_svg",
+    "overview_svg",
     "render_report",
     "tree_svg",
 ]
 
 MAX_DRAWN_TIPS = 2000
+# Clades drawn for a tree of more than MAX_DRAWN_TIPS tips.
+OVERVIEW_CLADES = 150
 STAGE_COLOURS = {
     "exact": "#1b7837",
     "canonical": "#5aae61",
@@ -80,6 +85,35 @@ def _layout(tree: TreeArrays) -> tuple[np.ndarray, np.ndarray]:
     return x, y
 
 
+def _branch_paths(tree: TreeArrays, px: np.ndarray, py: np.ndarray) -> list[str]:
+    """SVG paths of every branch: a horizontal line per edge and a vertical
+    line joining each node's children."""
+    parts = []
+    for node in range(1, tree.node_count):
+        parent = tree.parent[node]
+        parts.append(
+            f'<path d="M{px[parent]:.1f},{py[node]:.1f}H{px[node]:.1f}" stroke="#444" fill="none"/>'
+        )
+    low = np.full(tree.node_count, np.inf)
+    high = np.full(tree.node_count, -np.inf)
+    np.minimum.at(low, tree.parent[1:], py[1:])
+    np.maximum.at(high, tree.parent[1:], py[1:])
+    for node in np.flatnonzero(~tree.is_tip):
+        parts.append(
+            f'<path d="M{px[node]:.1f},{low[node]:.1f}V{high[node]:.1f}" '
+            'stroke="#444" fill="none"/>'
+        )
+    return parts
+
+
+def _svg(parts: list[str], width: int, height: int, label: str) -> str:
+    return (
+        f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" '
+        f'height="{height}" viewBox="0 0 {width} {height}" '
+        f'role="img" aria-label="{_e(label)}">' + "".join(parts) + "</svg>"
+    )
+
+
 def tree_svg(tree: TreeArrays, tip_stage: dict[str, str], with_data: set[str]) -> str:
     """Return an SVG drawing of ``tree``: branches, tip labels, and a mark
     per tip coloured by the match stage of its name (grey: no name) and
@@ -90,19 +124,7 @@ def tree_svg(tree: TreeArrays, tip_stage: dict[str, str], with_data: set[str]) -
     scale = width / height
     px = left + x * scale
     py = 10 + y * row
-    parts = []
-    for node in range(1, tree.node_count):
-        parent = tree.parent[node]
-        parts.append(
-            f'<path d="M{px[parent]:.1f},{py[node]:.1f}H{px[node]:.1f}" stroke="#444" fill="none"/>'
-        )
-    for node in np.flatnonzero(~tree.is_tip):
-        kids = py[tree.parent == node]
-        if len(kids):
-            parts.append(
-                f'<path d="M{px[node]:.1f},{kids.min():.1f}V{kids.max():.1f}" '
-                'stroke="#444" fill="none"/>'
-            )
+    parts = _branch_paths(tree, px, py)
     for node in tree.tips:
         label = tree.labels[node]
         colour = STAGE_COLOURS.get(tip_stage.get(label, "none"), "#e7298a")
@@ -117,12 +139,43 @@ def tree_svg(tree: TreeArrays, tip_stage: dict[str, str], with_data: set[str]) -
             f'<text x="{px[node] + 12:.1f}" y="{py[node] + 4:.1f}" font-size="11">'
             f"{_e(label)}</text>"
         )
-    total_height = 20 + len(tree.tips) * row
-    return (
-        f'<svg xmlns="http://www.w3.org/2000/svg" width="{left + width + 260}" '
-        f'height="{total_height}" viewBox="0 0 {left + width + 260} {total_height}" '
-        f'role="img" aria-label="tree">' + "".join(parts) + "</svg>"
-    )
+    return _svg(parts, left + width + 260, 20 + len(tree.tips) * row, "tree")
+
+
+def overview_svg(overview: TreeOverview) -> str:
+    """Return an SVG drawing of a tree's overview: the opened part of the
+    tree, and per shown clade a wedge reaching as far as its tips, shaded by
+    the share of its tips with trait data, labelled with its name and
+    counts (a single tip is drawn as a tip)."""
+    tree = overview.tree
+    x, y = _layout(tree)
+    depth = max(float(overview.reach.max()) if len(x) else 0.0, 1e-12)
+    row, left, width = 16, 10, 600
+    scale = width / depth
+    px = left + x * scale
+    py = 10 + y * row
+    parts = _branch_paths(tree, px, py)
+    for node in tree.tips:
+        tips, data, named = (
+            int(a[node]) for a in (overview.tips, overview.with_data, overview.named)
+        )
+        share = data / tips if tips else 0.0
+        end = left + overview.reach[node] * scale
+        if tips == 1:
+            text = f"{tree.labels[node]}: {'data' if data else 'missing data'}"
+            if not named:
+                text += ", no name"
+        else:
+            text = f"{overview.subjects[node]}: {data} with data, {named} named"
+        parts.append(
+            f'<path d="M{px[node]:.1f},{py[node]:.1f}L{end:.1f},{py[node] - 6:.1f}'
+            f'V{py[node] + 6:.1f}Z" fill="#1b7837" fill-opacity="{0.1 + 0.9 * share:.2f}" '
+            f'stroke="#444"><title>{_e(text)}</title></path>'
+        )
+        parts.append(
+            f'<text x="{end + 6:.1f}" y="{py[node] + 4:.1f}" font-size="11">{_e(text)}</text>'
+        )
+    return _svg(parts, left + width + 520, 20 + len(tree.tips) * row, "tree overview")
 
 
 def histogram_svg(values: np.ndarray, flagged: np.ndarray, label: str) -> str:
@@ -255,9 +308,14 @@ def render_report(
             tree_svg(tree, tip_stage, with_data),
         ]
     else:
-        sections.append(
-            f"<p>The tree has {tree.tips.size} tips, too many to draw legibly here.</p>"
-        )
+        named = set(tip_stage)
+        overview = overview_tree(tree, with_data, named, limit=OVERVIEW_CLADES)
+        sections += [
+            f"<p>The bundle's tree has {tree.tips.size} tips, too many to draw one by one: it is "
+            f"drawn as {overview.tree.tips.size} clades, each a wedge "
+            "as long as its tips reach, darker the more of its tips have trait data.</p>",
+            overview_svg(overview),
+        ]
     if len(trees) > 1:
         sections.append(f"<p>The bundle holds {len(trees)} trees; the first is drawn.</p>")
     sections.append("<h2>Trait distributions</h2>")
