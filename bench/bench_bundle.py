@@ -5,7 +5,7 @@ generator), without the covariance matrix.
 The store is built once through the real importers, trait definitions and
 name matching (its build time is printed, not judged). Each bundle and
 each verify then runs in a fresh Python process so that its peak resident
-memory (ru_maxrss of the child, imports included) is its own; times are
+memory (the child's own VmHWM, imports included) is its own; times are
 wall-clock medians of the repeats.
 
 Targets: bundle < 30 s, peak memory < 2 GB; verify < 10 s.
@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import json
 import os
-import resource
 import statistics
 import subprocess
 import sys
@@ -56,7 +55,12 @@ elif what == "traits":
 else:
     report = verify_bundle(folder)
     assert report.ok, report.problems[:5]
-print(time.perf_counter() - start)
+seconds = time.perf_counter() - start
+# The high-water mark of this process's own memory map: ru_maxrss would
+# also count the parent's pages that the child shared before exec.
+with open("/proc/self/status") as status:
+    peak_kb = next(int(line.split()[1]) for line in status if line.startswith("VmHWM:"))
+print(seconds, peak_kb)
 """
 
 
@@ -118,9 +122,8 @@ def _child(what: str, url: str, bundle: Path, tree_id: int) -> tuple[float, floa
     )
     if done.returncode != 0:
         raise RuntimeError(f"{what} failed:\n{done.stderr}")
-    # ru_maxrss of children is that of the largest child so far (kB on Linux).
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    return float(done.stdout.strip().splitlines()[-1]), peak / 1024
+    seconds, peak_kb = done.stdout.strip().splitlines()[-1].split()
+    return float(seconds), int(peak_kb) / 1024
 
 
 def _sha256sum(bundle: Path) -> float:
@@ -172,7 +175,7 @@ def run(tips: int = TIPS, rows: int = ROWS) -> list[dict]:
         },
         {
             "benchmark": name,
-            "measure": "make-bundle, peak RSS (largest child)",
+            "measure": "make-bundle, peak RSS (largest run)",
             "unit": "MB",
             "value": max(m for _, m in made),
             "target": "< 2048 MB",
@@ -183,6 +186,13 @@ def run(tips: int = TIPS, rows: int = ROWS) -> list[dict]:
             "unit": "s",
             "value": statistics.median(t for t, _ in checked),
             "target": "< 10 s",
+        },
+        {
+            "benchmark": name,
+            "measure": "verify-bundle, peak RSS (largest run)",
+            "unit": "MB",
+            "value": max(m for _, m in checked),
+            "target": "(informative)",
         },
         {
             "benchmark": name,
