@@ -85,6 +85,19 @@ def _layout(tree: TreeArrays) -> tuple[np.ndarray, np.ndarray]:
     return x, y
 
 
+def _positions(
+    tree: TreeArrays, depth: float | None, row: int, left: int, width: int
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Pixel x and y of every node, and pixels per unit of branch length,
+    for a drawing ``width`` wide spanning ``depth`` (default: the deepest
+    node) with ``row`` pixels per tip."""
+    x, y = _layout(tree)
+    if depth is None:
+        depth = float(x.max()) if len(x) else 0.0
+    scale = width / max(depth, 1e-12)
+    return left + x * scale, 10 + y * row, scale
+
+
 def _branch_paths(tree: TreeArrays, px: np.ndarray, py: np.ndarray) -> list[str]:
     """SVG paths of every branch: a horizontal line per edge and a vertical
     line joining each node's children."""
@@ -118,12 +131,8 @@ def tree_svg(tree: TreeArrays, tip_stage: dict[str, str], with_data: set[str]) -
     """Return an SVG drawing of ``tree``: branches, tip labels, and a mark
     per tip coloured by the match stage of its name (grey: no name) and
     filled when the tip has trait data (hollow: missing data)."""
-    x, y = _layout(tree)
-    height = max(float(x.max()) if len(x) else 0.0, 1e-12)
     row, left, width = 14, 10, 600
-    scale = width / height
-    px = left + x * scale
-    py = 10 + y * row
+    px, py, _ = _positions(tree, None, row, left, width)
     parts = _branch_paths(tree, px, py)
     for node in tree.tips:
         label = tree.labels[node]
@@ -148,12 +157,9 @@ def overview_svg(overview: TreeOverview) -> str:
     the share of its tips with trait data, labelled with its name and
     counts (a single tip is drawn as a tip)."""
     tree = overview.tree
-    x, y = _layout(tree)
-    depth = max(float(overview.reach.max()) if len(x) else 0.0, 1e-12)
     row, left, width = 16, 10, 600
-    scale = width / depth
-    px = left + x * scale
-    py = 10 + y * row
+    depth = float(overview.reach.max()) if len(overview.reach) else 0.0
+    px, py, scale = _positions(tree, depth, row, left, width)
     parts = _branch_paths(tree, px, py)
     for node in tree.tips:
         tips, data, named = (
