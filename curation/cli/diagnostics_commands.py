@@ -10,8 +10,10 @@ import typer
 
 from curation.cli.app import StoreOption, app, console
 from curation.cli.output import print_frame
-from curation.diagnostics import diagnose_traits, diagnostics_frame
 from curation.store import open_store
+
+# The diagnostics stage (with scipy.stats) is imported when its command
+# runs, so that every other command starts faster.
 
 
 @app.command("diagnose-traits")
@@ -44,6 +46,8 @@ def diagnose_traits_command(
 
     Example: tipledger diagnose-traits --tree 1 --values species.csv --permutations 999
     """
+    from curation.diagnostics import diagnose_traits, diagnostics_frame
+
     with open_store(store) as opened:
         results = diagnose_traits(
             opened,
