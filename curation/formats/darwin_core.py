@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from curation.errors import FormatError, Problem
-from curation.formats.tables import decode_text, parse_delimited
+from curation.formats.tables import decode_in_encoding, parse_delimited
 
 __all__ = [
     "DWC",
@@ -163,7 +163,7 @@ def _read_file(
             file=file_name,
         ) from None
     inner = f"{file_name}!{path}"
-    text = decode_text(raw, encoding, file_name=inner)
+    text = decode_in_encoding(raw, encoding, file_name=inner)
     if lines_end not in ("\n", "\r\n", "\r"):
         text = text.replace(lines_end, "\n")
     if not delimiter:

@@ -30,7 +30,7 @@ from curation.errors import FormatError, InputError, NotFoundError, Problem
 __all__ = [
     "DELIMITERS",
     "Table",
-    "decode_text",
+    "decode_in_encoding",
     "detect_delimiter",
     "detect_encoding",
     "parse_delimited",
@@ -152,7 +152,7 @@ def detect_encoding(data: bytes, *, file_name: str = "") -> str:
     return best.encoding
 
 
-def decode_text(data: bytes, encoding: str, *, file_name: str = "") -> str:
+def decode_in_encoding(data: bytes, encoding: str, *, file_name: str = "") -> str:
     """Return ``data`` decoded with ``encoding``, with any byte-order mark and
     universal newlines normalised to ``\\n``.
 
@@ -349,7 +349,7 @@ def _read_text_table(
     data: bytes, file_name: str, *, delimiter: str | None, encoding: str | None
 ) -> Table:
     used = encoding or detect_encoding(data, file_name=file_name)
-    text = decode_text(data, used, file_name=file_name)
+    text = decode_in_encoding(data, used, file_name=file_name)
     if not text.strip():
         raise InputError(
             f"{file_name!r} is empty: there is nothing to import",
