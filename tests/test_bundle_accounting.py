@@ -12,10 +12,11 @@ import pytest
 
 from curation.bundle.inputs import BundleInputs, BundleOptions, gather_bundle_inputs
 from curation.bundle.tables import _accounting, _short_note, build_tables
+from curation.imports.trees import import_trees
 from curation.names import decide_name
 from curation.store import Store
 from curation.trees.repairs import prune_trees
-from tests.bundle_helpers import build_store, first_tree
+from tests.bundle_helpers import TREE, build_store, first_tree
 
 
 def reference_accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd.DataFrame:
@@ -107,3 +108,22 @@ def test_accounting_agrees_with_the_reference(store: Store, tmp_path: Path, case
     pd.testing.assert_frame_equal(_plain(got), _plain(expected))
     assert set(got.loc[got["kind"] == "tip", "name"]) == set(all_tips)
     assert set(got.loc[got["kind"] == "written name", "name"]) == set(inputs.names["written_name"])
+
+
+def test_empty_tables_accounting_agrees_with_the_reference(store: Store, tmp_path: Path) -> None:
+    # Only the tree is stored: no trait table and no name decision, so every
+    # tip is kept as missing data (the empty edge of the gallery).
+    tree_file = tmp_path / "tree.nwk"
+    tree_file.write_text(TREE, encoding="utf-8")
+    tree_set_id = import_trees(store, tree_file).tree_set_id
+    options = BundleOptions(
+        tree_id=first_tree(store, tree_set_id), missing="keep", diagnostics=False
+    )
+    inputs = gather_bundle_inputs(store, options)
+    assert inputs.names.empty and inputs.species.empty
+    tables = build_tables(inputs)
+    all_tips = sorted(inputs.trees[0][2].tip_labels)
+    expected = reference_accounting(inputs, all_tips, set(tables.keep))
+    got = _accounting(inputs, all_tips, set(tables.keep))
+    pd.testing.assert_frame_equal(_plain(got), _plain(expected))
+    assert set(got["reason"]) == {"no written name matches this tip"}
