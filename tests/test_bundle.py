@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import io
+import json
 import shutil
 import subprocess
 import zipfile
@@ -422,3 +423,14 @@ def test_verify_catches_a_repeated_tip_and_a_ragged_row(bundled: tuple[Store, Pa
     assert any(f"repeats tip(s): {tip}" in p for p in problems), problems
     assert any("primary key 'tip_label' repeats" in p for p in problems), problems
     assert any("names.csv cannot be read as CSV" in p for p in problems), problems
+
+
+def test_progress_follows_the_diagnostics_trait_by_trait(store: Store, tmp_path: Path) -> None:
+    tree_set_id = build_store(store, tmp_path)
+    calls: list[tuple[int, int]] = []
+    options = BundleOptions(tree_id=first_tree(store, tree_set_id), permutations=9)
+    make_bundle(store, tmp_path / "p", options, progress=lambda d, t: calls.append((d, t)))
+    # Two continuous traits (mass and wing): before and after each.
+    assert calls == [(0, 2), (1, 2), (1, 2), (2, 2)]
+    provenance = json.loads((tmp_path / "p" / "provenance.json").read_text())
+    assert [d["trait"] for d in provenance["diagnostics"]] == ["mass", "wing"]

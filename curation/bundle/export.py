@@ -13,6 +13,7 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -40,6 +41,9 @@ from curation.trees.edits import pruned
 from curation.trees.matrix import covariance_matrix
 
 __all__ = ["BundleResult", "bundle_diagnostics", "make_bundle"]
+
+#: Called as ``progress(done, total)``.
+Progress = Callable[[int, int], None]
 
 
 class BundleResult(BaseModel):
@@ -82,18 +86,25 @@ def _bundle_trees(inputs: BundleInputs, keep: list[str]) -> list[tuple[str, Tree
 
 
 def bundle_diagnostics(
-    tree: TreeArrays, tables: BundleTables, *, permutations: int, seed: int
+    tree: TreeArrays,
+    tables: BundleTables,
+    *,
+    permutations: int,
+    seed: int,
+    progress: Progress | None = None,
 ) -> list[dict[str, Any]]:
     """Return the phylogenetic diagnostics of every continuous trait of the
     bundle on ``tree`` (as plain dicts for JSON), or a note why a trait's
-    could not be computed."""
+    could not be computed. ``progress(done, total)`` is called after each
+    trait."""
     from curation.diagnostics import trait_diagnostics
 
     out: list[dict[str, Any]] = []
     species = tables.species.set_index("tip_label")
-    for row in tables.traits.itertuples(index=False):
-        if row.kind == "discrete":
-            continue
+    continuous = tables.traits[tables.traits["kind"] != "discrete"]
+    for done, row in enumerate(continuous.itertuples(index=False), start=1):
+        if progress is not None:
+            progress(done - 1, len(continuous))
         values = species[row.trait].astype(float).dropna()
         se_column = f"{row.trait}_se"
         se = (
@@ -115,11 +126,13 @@ def bundle_diagnostics(
                     "sentence": f"Not computed: {exc.message}",
                 }
             )
+        if progress is not None:
+            progress(done, len(continuous))
     return out
 
 
 def _write_files(
-    inputs: BundleInputs, tables: BundleTables, folder: Path
+    inputs: BundleInputs, tables: BundleTables, folder: Path, progress: Progress | None
 ) -> tuple[str, list[dict[str, Any]]]:
     trees = _bundle_trees(inputs, tables.keep)
     if len(trees) == 1:
@@ -154,6 +167,7 @@ def _write_files(
             tables,
             permutations=inputs.options.permutations,
             seed=inputs.options.seed,
+            progress=progress,
         )
     (folder / "datapackage.json").write_text(
         _json(data_package(inputs, tables, written, tree_file)), encoding="utf-8"
@@ -176,6 +190,7 @@ def make_bundle(
     *,
     replace: bool = False,
     who: str | None = None,
+    progress: Progress | None = None,
 ) -> BundleResult:
     """Write an analysis-ready bundle of the store into ``folder``.
 
@@ -186,7 +201,8 @@ def make_bundle(
     the variance-covariance matrix; ``datapackage.json``, ``provenance.json``,
     ``report.html`` and ``SHA256SUMS``; on request a zip beside the folder.
     With SOURCE_DATE_EPOCH set, the same store and options give the same
-    bytes.
+    bytes. ``progress(done, total)`` follows the diagnostics, trait by
+    trait (the slow part of a large bundle).
 
     Returns:
         :class:`BundleResult`.
@@ -223,7 +239,7 @@ def make_bundle(
     zip_path = target.with_suffix(".zip") if options.make_zip else None
     partial_zip = target.parent / f".{target.name}.partial.zip"
     try:
-        tree_file, _ = _write_files(inputs, tables, work)
+        tree_file, _ = _write_files(inputs, tables, work, progress)
         files = sorted(p.relative_to(work).as_posix() for p in work.rglob("*") if p.is_file())
         if zip_path is not None:
             write_zip(work, partial_zip, target.name)

@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from curation.cli.app import StoreOption, UserOption, app, console
+from curation.cli.output import progress_bar
 from curation.store import open_store
 
 # The bundle stage (with pyarrow and the report) is imported when a bundle
@@ -71,8 +72,8 @@ def make_bundle_command(
         permutations=permutations,
         seed=seed,
     )
-    with open_store(store) as opened:
-        result = make_bundle(opened, folder, options, replace=replace, who=user)
+    with open_store(store) as opened, progress_bar("diagnosing traits") as progress:
+        result = make_bundle(opened, folder, options, replace=replace, who=user, progress=progress)
     console.print(
         f"Bundle in {result.folder}: {result.tips} tips, {len(result.traits)} traits, "
         f"{len(result.files)} files ({result.tips_pruned} tips pruned, "
