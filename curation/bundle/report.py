@@ -274,7 +274,7 @@ def render_report(
     with_data = set(inputs.species["tip_label"].unique()) if not inputs.species.empty else set()
     summary = pd.DataFrame(
         [
-            ("tips on the tree", len(tips)),
+            ("tips on the chosen tree", len(tips)),
             ("tips in the bundle", len(tables.keep)),
             ("tips with trait data", int((tips["status"] == "matched").sum())),
             ("written names", len(names)),
@@ -292,7 +292,8 @@ def render_report(
         covered = int((tables.species[n_col].fillna(0) > 0).sum()) if n_col in tables.species else 0
         coverage.append((row.trait, row.kind, row.scale, row.unit, covered, len(tips)))
     coverage_frame = pd.DataFrame(
-        coverage, columns=["trait", "kind", "scale", "unit", "tips with data", "tips on tree"]
+        coverage,
+        columns=["trait", "kind", "scale", "unit", "tips with data", "tips on the chosen tree"],
     )
     sections = [
         "<h2>Summary</h2>",
