@@ -10,16 +10,17 @@ from curation.imports.trees import import_trees
 from curation.names.decisions import reconcile_names
 from curation.store import Store
 
-# The test tree (branch lengths on the edges; Gamma_five has no trait data):
+# The test tree, branch lengths on the edges (Gamma_five has no trait data):
 #
-#              0.3 /---- Alpha_one
-#          0.2 /--|
-#             |    \---- Alpha_two      0.3
-#   root -----|
-#             |    /---- Beta_three     0.25
-#          0.1 \--|
-#              0.4 \---- Beta_four      0.35... see TREE below
-#             \--------- Gamma_five     0.5
+#                  +--0.3-- Alpha_one
+#          +--0.2--+
+#          |       +--0.3-- Alpha_two
+#          |
+#   root --+       +--0.4-- Beta_three
+#          +--0.1--+
+#          |       +--0.4-- Beta_four
+#          |
+#          +--0.5---------- Gamma_five
 TREE = "((Alpha_one:0.3,Alpha_two:0.3):0.2,(Beta_three:0.4,Beta_four:0.4):0.1,Gamma_five:0.5);\n"
 POSTERIOR = (
     "#NEXUS\nBEGIN TREES;\n"
