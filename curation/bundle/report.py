@@ -327,14 +327,16 @@ def render_report(
         sections.append(f"<p>The bundle holds {len(trees)} trees; the first is drawn.</p>")
     sections.append("<h2>Trait distributions</h2>")
     measured = tables.measurements
-    flagged = measured.loc[measured["flags"].fillna("") != "", "measurement_id"]
-    value_column = "value"
+    # Rows of each trait found once (a bundle may hold a million measurements).
+    rows_of = measured.groupby("trait", sort=False).indices
+    every_value = measured["value"].to_numpy(dtype=float)
+    is_flagged = (measured["flags"].fillna("") != "").to_numpy(dtype=bool)
     for row in tables.traits.itertuples(index=False):
         if row.kind == "discrete":
             continue
-        these = measured[measured["trait"] == row.trait]
-        values = these[value_column].to_numpy(dtype=float)
-        marks = these.loc[these["measurement_id"].isin(flagged), value_column].to_numpy(dtype=float)
+        rows = rows_of.get(row.trait, np.zeros(0, dtype=np.int64))
+        values = every_value[rows]
+        marks = values[is_flagged[rows]]
         sections.append(f"<h3>{_e(row.trait)}</h3>")
         sections.append(
             histogram_svg(
