@@ -133,9 +133,10 @@ def read_text_table(path: Path, columns: list[str] | None = None) -> pa.Table:
         OSError, UnicodeDecodeError, pyarrow.ArrowInvalid: the file cannot
             be read as CSV (unequal rows, bad UTF-8, no header).
     """
-    with path.open(encoding="utf-8", newline="") as handle:
+    # utf-8-sig: Arrow skips a byte-order mark, so the header read here must too.
+    with path.open(encoding="utf-8-sig", newline="") as handle:
         header = next(csv.reader(handle), [])
-    return pacsv.read_csv(
+    table = pacsv.read_csv(
         path,
         parse_options=pacsv.ParseOptions(newlines_in_values=True),
         convert_options=pacsv.ConvertOptions(
@@ -145,6 +146,13 @@ def read_text_table(path: Path, columns: list[str] | None = None) -> pa.Table:
             quoted_strings_can_be_null=False,
         ),
     )
+    # A column the header above did not name (a repeated name, say) was
+    # typed by inference: make it text like the rest.
+    for index, field in enumerate(table.schema):
+        if not pa.types.is_string(field.type):
+            text = pc.fill_null(pc.cast(table.column(index), pa.string()), "")
+            table = table.set_column(index, field.name, text)
+    return table
 
 
 def _bad_cells(cells: pa.ChunkedArray, kind: str) -> np.ndarray:
