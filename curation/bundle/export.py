@@ -13,7 +13,6 @@ import json
 import os
 import shutil
 import tempfile
-from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -34,6 +33,7 @@ from curation.bundle.package import data_package, provenance
 from curation.bundle.report import render_report
 from curation.bundle.tables import BundleTables, build_tables
 from curation.errors import ConflictError, InputError, TipledgerError
+from curation.progress import Progress
 from curation.store.engine import Store
 from curation.store.ledger import record_event
 from curation.trees.arrays import TreeArrays
@@ -41,9 +41,6 @@ from curation.trees.edits import pruned
 from curation.trees.matrix import covariance_matrix
 
 __all__ = ["BundleResult", "bundle_diagnostics", "make_bundle"]
-
-#: Called as ``progress(done, total)``.
-Progress = Callable[[int, int], None]
 
 
 class BundleResult(BaseModel):

@@ -28,12 +28,12 @@ from curation.formats.darwin_core import (
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
 from curation.imports.measurements import (
     MEASUREMENT_COLUMNS,
-    ProgressCallback,
     check_decimal,
     mark_discrete,
     parse_values,
     store_measurements,
 )
+from curation.progress import Progress
 from curation.store.engine import Store
 from curation.store.models import TraitDefinition, TraitSource
 
@@ -224,7 +224,7 @@ def import_darwin_core(
     priority: int = 100,
     info: SourceInfo | None = None,
     who: str | None = None,
-    progress: ProgressCallback | None = None,
+    progress: Progress | None = None,
 ) -> ImportResult:
     """Import a Darwin Core Archive's measurements as one trait source.
 

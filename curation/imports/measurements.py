@@ -10,19 +10,17 @@ help); an empty cell or a missing-value mark is status ``missing``.
 
 from __future__ import annotations
 
-from collections.abc import Callable
-
 import numpy as np
 import pandas as pd
 from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from curation.errors import InputError
+from curation.progress import Progress
 from curation.store.models import Measurement
 
 __all__ = [
     "MISSING_MARKS",
-    "ProgressCallback",
     "MEASUREMENT_COLUMNS",
     "parse_values",
     "mark_discrete",
@@ -31,8 +29,6 @@ __all__ = [
     "insert_rows",
 ]
 
-#: Called as ``progress(done, total)`` while rows are stored.
-ProgressCallback = Callable[[int, int], None]
 
 #: Written marks read as "no value" (case-insensitive; common practice of
 #: spreadsheets and R/pandas exports).
@@ -195,7 +191,7 @@ def store_measurements(
     frame: pd.DataFrame,
     *,
     chunk_size: int = 20_000,
-    progress: ProgressCallback | None = None,
+    progress: Progress | None = None,
 ) -> dict[str, int]:
     """Insert ``frame``'s rows as measurements of one trait source, in bulk.
 

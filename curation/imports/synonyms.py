@@ -24,7 +24,7 @@ from curation.errors import FormatError, InputError, Problem
 from curation.formats.darwin_core import TAXON, read_archive
 from curation.formats.tables import read_table
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
-from curation.imports.measurements import ProgressCallback
+from curation.progress import Progress
 from curation.store.engine import Store
 from curation.store.models import Synonym
 
@@ -317,7 +317,7 @@ def import_synonyms(
     sheet: str | None = None,
     info: SourceInfo | None = None,
     who: str | None = None,
-    progress: ProgressCallback | None = None,
+    progress: Progress | None = None,
 ) -> ImportResult:
     """Import synonyms from a table of pairs or a Darwin Core Taxon checklist.
 

@@ -29,12 +29,12 @@ from curation.formats.tables import Table, read_table
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
 from curation.imports.measurements import (
     MEASUREMENT_COLUMNS,
-    ProgressCallback,
     check_decimal,
     mark_discrete,
     parse_values,
     store_measurements,
 )
+from curation.progress import Progress
 from curation.store.engine import Store
 from curation.store.models import TraitDefinition, TraitSource
 
@@ -481,7 +481,7 @@ def import_traits(
     priority: int = 100,
     info: SourceInfo | None = None,
     who: str | None = None,
-    progress: ProgressCallback | None = None,
+    progress: Progress | None = None,
 ) -> ImportResult:
     """Import a trait table as one trait source with its measurements.
 

@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import io
 import os
-from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
@@ -32,6 +31,7 @@ from curation.formats.newick import relabel_tips, split_newick
 from curation.formats.nexus import NexusTree, read_nexus, rooting_of_comments
 from curation.formats.text import decode_text, locate, shift_error
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
+from curation.progress import Progress
 from curation.store.engine import Store
 from curation.store.models import TreeSet
 from curation.trees.arrays import TreeArrays, from_dendropy, parse_newick, to_newick
@@ -49,7 +49,6 @@ __all__ = [
 
 TREE_FORMATS = ("newick", "nexus", "nexml")
 
-Progress = Callable[[int, int], None]
 
 # File name endings that say the format when the content does not.
 _EXTENSIONS = {
