@@ -1,9 +1,9 @@
 """An overview of a tree too large to draw tip by tip: the tree cut down to
 at most a few hundred clades, each standing for all the tips below it.
 
-The largest clade is opened (replaced by its children) again and again
-until one more opening would pass the limit, so the big clades are split
-and the small ones stay whole. Every tip of the tree lies below exactly one
+The largest clade is opened (replaced by its children) again and again,
+passing over any clade whose opening would exceed the limit, so the big
+clades are split and the small ones stay whole. Every tip of the tree lies below exactly one
 shown clade; each shown clade carries how many of its tips have trait data
 and how many a written name reaches, and is named as findings name nodes
 (two tips and the tip count, :mod:`curation.trees.nodes`).
@@ -109,8 +109,8 @@ def overview_tree(
     original = np.flatnonzero(keep)
     position = np.full(tree.node_count, -1, dtype=np.int64)
     position[original] = np.arange(len(original))
-    new_parent = np.where(original == 0, -1, position[parent[original]])
-    new_parent[0] = -1
+    new_parent = position[parent[original]]
+    new_parent[0] = -1  # the root (its parent index -1 read the last entry)
     depths = tree.depths()
     reach = np.array([depths[node : names.ends[node]].max() for node in original], dtype=float)
     small = TreeArrays(
