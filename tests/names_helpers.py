@@ -20,7 +20,7 @@ def seed_store(
     """Store the tree ``newick`` as a tree set, one measurement per written
     name and the synonym pairs (synonym, accepted); return the tree set id."""
     with store.transaction() as session:
-        event = record_event(session, "seed", summary="test data")
+        event = record_event(session, "import-trees", summary="test data")
         tree_source = Source(
             sha256="a" * 64,
             size_bytes=1,

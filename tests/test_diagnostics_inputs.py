@@ -202,7 +202,7 @@ def test_same_seed_same_p_value() -> None:
 
 def _stored_tree(store: Store, newick: str) -> int:
     with store.transaction() as session:
-        event = record_event(session, "test.add_tree", summary="a tree for the diagnostics")
+        event = record_event(session, "import-trees", summary="a tree for the diagnostics")
         tree_set = TreeSet(name="diagnostics test", event_id=event.id)
         session.add(tree_set)
         session.flush()

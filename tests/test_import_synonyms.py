@@ -53,7 +53,7 @@ def test_two_column_table(store: Store, tmp_path: Path) -> None:
     assert result.counts == {"rows": 3, "synonyms": 2, "accepted_names": 1}
     with store.reading() as session:
         assert session.scalars(select(Source)).one().kind == "synonym"
-        assert session.scalars(select(LedgerEvent)).one().action == "import_synonym"
+        assert session.scalars(select(LedgerEvent)).one().action == "import-synonyms"
 
 
 def test_named_columns_in_a_wider_table(store: Store, tmp_path: Path) -> None:

@@ -110,7 +110,7 @@ def test_wide_csv_round_trip(store: Store, tmp_path: Path) -> None:
         trait_source = session.scalars(select(TraitSource)).one()
         assert trait_source.layout == "wide" and trait_source.priority == 100
         events = session.scalars(select(LedgerEvent)).all()
-        assert len(events) == 1 and events[0].action == "import_trait"
+        assert len(events) == 1 and events[0].action == "import-traits"
 
 
 @pytest.mark.parametrize(

@@ -648,7 +648,7 @@ def test_one_ledger_event_and_the_source_details(store: Store) -> None:
         source = session.get(Source, result.source_id)
         tree_set = session.get(TreeSet, result.tree_set_id)
         assert source is not None and tree_set is not None
-        assert [e.action for e in events] == ["import_tree"]
+        assert [e.action for e in events] == ["import-trees"]
         assert events[0].who == "a-curator"
         assert events[0].parameters["burn_in"] == 0
         assert events[0].parameters["trees_stored"] == 1

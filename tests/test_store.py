@@ -69,7 +69,7 @@ def test_foreign_database_is_not_taken_over(tmp_path: Path) -> None:
 
 def test_transaction_rolls_back_everything_on_error(store: Store) -> None:
     with pytest.raises(RuntimeError), store.transaction() as session:
-        record_event(session, "import", summary="half done")
+        record_event(session, "import-trees", summary="half done")
         raise RuntimeError("interrupted")
     with store.reading() as session:
         assert session.scalars(select(LedgerEvent)).all() == []
@@ -78,7 +78,7 @@ def test_transaction_rolls_back_everything_on_error(store: Store) -> None:
 def test_ledger_records_who_and_when(store: Store, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1700000000")
     with store.transaction() as session:
-        record_event(session, "import", subject="a.nex", parameters={"burn_in": 10})
+        record_event(session, "import-trees", subject="a.nex", parameters={"burn_in": 10})
     with store.reading() as session:
         (event,) = session.scalars(select(LedgerEvent)).all()
     assert event.who == "test-curator"
@@ -100,7 +100,7 @@ def test_json_columns_hold_no_nan_on_any_backend(store: Store) -> None:
     from curation.store.models import StoredFinding
 
     with store.transaction() as session:
-        event = record_event(session, "check", parameters={"x": math.nan, "n": np.int64(3)})
+        event = record_event(session, "check-trees", parameters={"x": math.nan, "n": np.int64(3)})
         finding = Finding(
             code="test.nan",
             severity=Severity.info,

@@ -288,7 +288,7 @@ def test_check_trees_counts_trees_per_finding(store: Store) -> None:
     assert not_shared == ["tip 'D'", "tip 'E'"]
     with store.reading() as session:
         events = session.scalars(
-            select(LedgerEvent).where(LedgerEvent.action == "check_trees")
+            select(LedgerEvent).where(LedgerEvent.action == "check-trees")
         ).all()
         assert len(events) == 1
         stored = session.scalar(

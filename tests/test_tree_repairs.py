@@ -264,12 +264,12 @@ POSTERIOR = [
 def test_each_repair_makes_a_derived_set_with_one_event(store: Store) -> None:
     set_id = _add_set(store, POSTERIOR)
     repairs = [
-        ("prune_trees", lambda: prune_trees(store, set_id, tips=["A", "B", "D"])),
-        ("resolve_polytomies", lambda: resolve_polytomies(store, set_id, seed=3)),
-        ("collapse_short_branches", lambda: collapse_short_branches(store, set_id, threshold=0.5)),
-        ("make_ultrametric", lambda: make_ultrametric(store, set_id)),
-        ("lengthen_zero_tips", lambda: lengthen_zero_tips(store, set_id, length=1e-6)),
-        ("sort_children", lambda: sort_children(store, set_id)),
+        ("prune-trees", lambda: prune_trees(store, set_id, tips=["A", "B", "D"])),
+        ("resolve-polytomies", lambda: resolve_polytomies(store, set_id, seed=3)),
+        ("collapse-short-branches", lambda: collapse_short_branches(store, set_id, threshold=0.5)),
+        ("make-ultrametric", lambda: make_ultrametric(store, set_id)),
+        ("lengthen-zero-tips", lambda: lengthen_zero_tips(store, set_id, length=1e-6)),
+        ("sort-children", lambda: sort_children(store, set_id)),
     ]
     for action, run in repairs:
         events, sets, trees = _counts(store)
@@ -287,7 +287,7 @@ def test_each_repair_makes_a_derived_set_with_one_event(store: Store) -> None:
         assert [t.newick for t, _ in originals] == POSTERIOR  # the original is untouched
     with store.reading() as session:
         resolved = session.scalars(
-            select(TreeSet).where(TreeSet.repair == "resolve_polytomies")
+            select(TreeSet).where(TreeSet.repair == "resolve-polytomies")
         ).one()
         for _tree, arrays in load_tree_set(session, resolved.id):
             assert arrays.child_count.max() == 2

@@ -17,6 +17,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from curation.errors import ConflictError, InputError, NotFoundError
+from curation.store.actions import import_action
 from curation.store.ledger import record_event
 from curation.store.models import LedgerEvent, Source
 from curation.timestamps import now
@@ -111,7 +112,7 @@ def register_source(
     info = info or SourceInfo()
     event = record_event(
         session,
-        f"import_{kind}",
+        import_action(kind, format),
         subject=file_name,
         summary=summary or f"imported {kind} source {file_name}",
         parameters={"sha256": digest, "format": format, **(options or {})},

@@ -8,7 +8,6 @@ transaction as the change, so the two are stored together or not at all.
 from __future__ import annotations
 
 import getpass
-import math
 import os
 from typing import Any
 
@@ -17,13 +16,14 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from curation.findings import Finding
+from curation.jsontext import json_safe
+from curation.store.actions import check_action
 from curation.store.models import LedgerEvent, StoredFinding
 from curation.timestamps import now
 
 __all__ = [
     "USER_ENV",
     "current_user",
-    "json_safe",
     "ledger_frame",
     "record_event",
     "record_findings",
@@ -46,25 +46,6 @@ def current_user(user: str | None = None) -> str:
         return "unknown"
 
 
-def json_safe(value: Any) -> Any:
-    """Return ``value`` with what JSON columns cannot hold made plain: NaN
-    and infinities become None (PostgreSQL's JSON refuses them), NumPy
-    scalars become Python numbers, tuples and sets become lists."""
-    if isinstance(value, dict):
-        return {str(k): json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple, set, frozenset)):
-        items = sorted(value, key=str) if isinstance(value, (set, frozenset)) else value
-        return [json_safe(v) for v in items]
-    if hasattr(value, "item") and callable(value.item) and not isinstance(value, (str, bytes)):
-        try:
-            value = value.item()  # a NumPy scalar
-        except (TypeError, ValueError):
-            return str(value)
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def record_event(
     session: Session,
     action: str,
@@ -75,11 +56,16 @@ def record_event(
     who: str | None = None,
 ) -> LedgerEvent:
     """Add one event to the ledger in ``session``'s transaction and return it
-    (flushed, so its ``id`` is set)."""
+    (flushed, so its ``id`` is set).
+
+    Raises:
+        ValueError: ``action`` is not one of
+            :data:`curation.store.actions.ACTIONS`.
+    """
     event = LedgerEvent(
         at=now(),
         who=current_user(who),
-        action=action,
+        action=check_action(action),
         subject=subject,
         summary=summary,
         parameters=json_safe(parameters or {}),

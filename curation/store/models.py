@@ -23,6 +23,7 @@ from sqlalchemy import (
     MetaData,
     String,
     Text,
+    text,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
@@ -212,10 +213,24 @@ class Synonym(Base):
 
 
 class NameDecision(Base):
-    """How a written name maps to a tip of a tree set: stage, score, who and
-    when. Later decisions for the same name supersede earlier ones."""
+    """How a written name maps to a tip of a tree set's lineage (decisions
+    are stored on the lineage's origin): stage, score, who and when. Later
+    decisions for the same name supersede earlier ones; a decision is
+    superseded at most once and a name has one first decision, so two
+    curators cannot both supersede the decision in force."""
 
     __tablename__ = "name_decisions"
+    __table_args__ = (
+        Index("uq_name_decisions_supersedes_id", "supersedes_id", unique=True),
+        Index(
+            "uq_name_decisions_first",
+            "tree_set_id",
+            "written_name",
+            unique=True,
+            sqlite_where=text("supersedes_id IS NULL"),
+            postgresql_where=text("supersedes_id IS NULL"),
+        ),
+    )
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     tree_set_id: Mapped[int] = mapped_column(ForeignKey("tree_sets.id"), index=True)
     written_name: Mapped[str] = mapped_column(Text, index=True)

@@ -574,7 +574,7 @@ def check_trees(
     who: str | None = None,
 ) -> TreeCheckReport:
     """Check every tree of a stored tree set (or one tree) and store the
-    findings under one ledger event ``check_trees``.
+    findings under one ledger event ``check-trees``.
 
     Options are those of :func:`check_tree`.
 
@@ -626,7 +626,7 @@ def check_trees(
         )
         event = record_event(
             session,
-            "check_trees",
+            "check-trees",
             subject=subject,
             summary=summary,
             parameters={
@@ -656,7 +656,7 @@ def check_trees(
 def tree_findings(
     store: Store, tree_set_id: int | None = None, *, tree_id: int | None = None
 ) -> pd.DataFrame:
-    """Return the findings of the latest ``check_trees`` of a tree set (or
+    """Return the findings of the latest ``check-trees`` of a tree set (or
     of one tree) as a DataFrame (code, severity, subject, message, details),
     sorted by code and subject; empty when it was never checked.
 
@@ -674,7 +674,7 @@ def tree_findings(
             subject = f"tree set {tree_set_id}"
         event_id = session.scalar(
             select(LedgerEvent.id)
-            .where(LedgerEvent.action == "check_trees", LedgerEvent.subject == subject)
+            .where(LedgerEvent.action == "check-trees", LedgerEvent.subject == subject)
             .order_by(LedgerEvent.id.desc())
             .limit(1)
         )

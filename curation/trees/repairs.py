@@ -94,12 +94,12 @@ def _repair(
             session,
             action,
             subject=subject,
-            summary=f"{action.replace('_', ' ')}: {changed} of {len(loaded)} trees changed",
+            summary=f"{action.replace('-', ' ')}: {changed} of {len(loaded)} trees changed",
             parameters={**parameters, "tree_set_id": original.id, "tree_id": tree_id},
             who=who,
         )
         derived = TreeSet(
-            name=f"{original.name} ({action.replace('_', ' ')})",
+            name=f"{original.name} ({action.replace('-', ' ')})",
             source_id=original.source_id,
             derived_from_id=original.id,
             repair=action,
@@ -157,7 +157,7 @@ def prune_trees(
         store,
         tree_set_id,
         tree_id,
-        "prune_trees",
+        "prune-trees",
         lambda arrays: pruned(arrays, keep),
         {"tips": keep},
         who,
@@ -204,7 +204,7 @@ def resolve_polytomies(
         store,
         tree_set_id,
         tree_id,
-        "resolve_polytomies",
+        "resolve-polytomies",
         edit,
         {"branch_length": branch_length, "seed": seed, "random": seed is not None},
         who,
@@ -240,7 +240,7 @@ def collapse_short_branches(
         store,
         tree_set_id,
         tree_id,
-        "collapse_short_branches",
+        "collapse-short-branches",
         lambda arrays: short_branches_collapsed(arrays, threshold),
         {"threshold": threshold},
         who,
@@ -286,7 +286,7 @@ def make_ultrametric(
         store,
         tree_set_id,
         tree_id,
-        "make_ultrametric",
+        "make-ultrametric",
         lambda arrays: made_ultrametric(arrays, method=method, tolerance=tolerance, force=force),
         {"method": method, "tolerance": tolerance, "force": force},
         who,
@@ -321,7 +321,7 @@ def lengthen_zero_tips(
         store,
         tree_set_id,
         tree_id,
-        "lengthen_zero_tips",
+        "lengthen-zero-tips",
         lambda arrays: zero_tips_lengthened(arrays, length),
         {"length": length},
         who,
@@ -345,5 +345,5 @@ def sort_children(
         NotFoundError: no such tree set or tree.
     """
     return _repair(
-        store, tree_set_id, tree_id, "sort_children", children_sorted, {"order": "size"}, who
+        store, tree_set_id, tree_id, "sort-children", children_sorted, {"order": "size"}, who
     )
