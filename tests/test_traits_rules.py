@@ -27,7 +27,6 @@ from curation.store.models import (
     Source,
     TraitDefinition,
     TraitSource,
-    Tree,
     TreeSet,
 )
 from curation.timestamps import now
@@ -42,6 +41,8 @@ from curation.traits import (
     species_values,
 )
 from curation.traits.definitions import DEFINITION_COLUMNS
+from curation.trees.arrays import parse_newick
+from curation.trees.stored import add_tree
 
 
 def _counts(store: Store) -> tuple[int, int, int]:
@@ -259,17 +260,10 @@ def small_store(store: Store) -> Store:
             session.add(trait_source)
             session.flush()
             ids.append(trait_source.id)
-        tree_set = TreeSet(name="t", tree_count=1)
+        tree_set = TreeSet(name="t", tree_count=0)
         session.add(tree_set)
         session.flush()
-        session.add(
-            Tree(
-                tree_set_id=tree_set.id,
-                index_in_file=0,
-                tip_count=2,
-                newick="(Alpha_one:1,Alpha_two:1);",
-            )
-        )
+        add_tree(session, tree_set, parse_newick("(Alpha_one:1,Alpha_two:1);"), index_in_file=0)
         rows = [
             (ids[0], "Alpha one", 10.0, "mm", "F"),
             (ids[0], "Alpha one", 12.0, "mm", "M"),

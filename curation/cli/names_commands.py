@@ -50,7 +50,17 @@ def reconcile_names_command(
     with open_store(store) as opened:
         report = reconcile_names(opened, tree_set, options=options, who=user)
     print_frame("Findings", findings_frame(report.findings).drop(columns=["details"]), limit=20)
-    print_counts(report.model_dump(exclude={"findings", "names_without_tip", "tips_without_data"}))
+    if report.decisions_tree_set_id != report.tree_set_id:
+        console.print(
+            f"Tree set {report.tree_set_id} was derived from tree set "
+            f"{report.decisions_tree_set_id}: the decisions are recorded on tree set "
+            f"{report.decisions_tree_set_id}, which every set derived from it reads."
+        )
+    print_counts(
+        report.model_dump(
+            exclude={"findings", "names_without_tip", "tips_without_data", "decisions_tree_set_id"}
+        )
+    )
     console.print(
         f"names without a tip: {len(report.names_without_tip)}; "
         f"tips without data: {len(report.tips_without_data)}"

@@ -20,12 +20,14 @@ from rapidfuzz import process
 from sqlalchemy import insert, select
 from sqlalchemy.orm import Session
 
+from curation import jsontext
 from curation.errors import InputError, NotFoundError, Problem
 from curation.findings import Finding
 from curation.names.match import STAGES, MatchOptions, match_findings, match_names
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
 from curation.store.ledger import current_user, record_event, record_findings
+from curation.store.lineage import lineage_of
 from curation.store.models import Measurement, NameDecision, Synonym
 from curation.timestamps import now
 from curation.trees.stored import tip_labels_of_set
@@ -49,7 +51,10 @@ STATUSES = ("accepted", "rejected", "pending")
 class ReconcileReport(BaseModel):
     """What :func:`reconcile_names` did for one tree set."""
 
-    tree_set_id: int
+    tree_set_id: int = Field(description="the tree set asked for")
+    decisions_tree_set_id: int = Field(
+        description="the origin of its lineage, where the decisions are recorded"
+    )
     event_id: int
     written_names: int = Field(description="distinct written names in the measurements")
     tips: int
@@ -103,15 +108,13 @@ def _synonym_frame(session: Session) -> pd.DataFrame:
 
 
 def _note(row: Any) -> str:
-    return json.dumps(
+    return jsontext.dumps(
         {
             "automatic": True,
             "reason": row.reason,
             "canonical": row.canonical,
             "candidates": row.candidates,
-        },
-        ensure_ascii=False,
-        sort_keys=True,
+        }
     )
 
 
@@ -123,7 +126,11 @@ def reconcile_names(
     who: str | None = None,
 ) -> ReconcileReport:
     """Match every distinct written name of the measurements against the
-    tips of tree set ``tree_set_id`` and record the decisions.
+    tips of tree set ``tree_set_id``'s lineage and record the decisions.
+
+    Decisions belong to a lineage (:mod:`curation.store.lineage`): for a set
+    derived by a repair they are matched against, and recorded on, the
+    origin it was derived from, which every member of the lineage reads.
 
     Names with an accepted or rejected decision in force are reused, never
     matched again. Every other name is matched (:func:`match_names`): it is
@@ -142,9 +149,10 @@ def reconcile_names(
     opts = options or MatchOptions()
     user = current_user(who)
     with store.transaction() as session:
-        tips = tip_labels_of_set(session, tree_set_id)
+        origin = lineage_of(session, tree_set_id).origin_id
+        tips = tip_labels_of_set(session, origin)
         names = written_names(session)
-        current = current_decisions(session, tree_set_id)
+        current = current_decisions(session, origin)
         settled = current[current["status"].isin(["accepted", "rejected"])]
         settled_names = set(settled["written_name"])
         to_match = [n for n in names if n not in settled_names]
@@ -160,20 +168,24 @@ def reconcile_names(
         event = record_event(
             session,
             "reconcile-names",
-            subject=f"tree set {tree_set_id}",
+            subject=f"tree set {origin}",
             summary=(
                 f"matched {len(result)} written names against {len(tips)} tips: "
                 f"{int((fresh['status'] == 'accepted').sum())} accepted automatically, "
                 f"{int((result['status'] == 'pending').sum())} pending, "
                 f"{len(settled)} kept from earlier decisions"
             ),
-            parameters={"tree_set_id": tree_set_id, "options": opts.model_dump()},
+            parameters={
+                "tree_set_id": origin,
+                "asked_tree_set_id": tree_set_id,
+                "options": opts.model_dump(),
+            },
             who=user,
         )
         at = now()
         rows = [
             {
-                "tree_set_id": tree_set_id,
+                "tree_set_id": origin,
                 "written_name": r.written_name,
                 "tip_label": r.tip_label if r.status == "accepted" else None,
                 "status": r.status,
@@ -205,6 +217,7 @@ def reconcile_names(
         findings = match_findings(in_force, tips)
         record_findings(session, event, findings)
         report = _report(tree_set_id, event.id, names, tips, in_force, findings)
+        report.decisions_tree_set_id = origin
         report.reused = len(settled)
         report.new_decisions = len(rows)
     return report
@@ -225,6 +238,7 @@ def _report(
     used_tips = set(accepted["tip_label"])
     return ReconcileReport(
         tree_set_id=tree_set_id,
+        decisions_tree_set_id=tree_set_id,
         event_id=event_id,
         written_names=len(names),
         tips=len(tips),
@@ -249,8 +263,10 @@ def check_decisions(
     session: Session, tree_set_id: int, items: list[dict[str, Any]]
 ) -> list[Problem]:
     """Return every problem of a person's decisions (see
-    :func:`apply_decisions`): unknown written names, statuses and tips."""
-    tips = tip_labels_of_set(session, tree_set_id)
+    :func:`apply_decisions`): unknown written names, statuses and tips (a
+    tip must be one of the lineage's origin, see :mod:`curation.store.lineage`)."""
+    lineage = lineage_of(session, tree_set_id)
+    tips = tip_labels_of_set(session, lineage.origin_id)
     tip_set = set(tips)
     current = current_decisions(session, tree_set_id)
     known = set(written_names(session)) | set(current["written_name"])
@@ -280,7 +296,7 @@ def check_decisions(
         if status == "accepted" and tip not in tip_set:
             problems.append(
                 Problem(
-                    f"tip {tip!r} for {name!r} is not in tree set {tree_set_id} "
+                    f"tip {tip!r} for {name!r} is not in {lineage.describe()} "
                     f"(close tips: {_close_tips(str(tip), tips)})",
                     row=row,
                     field="tip_label",
@@ -306,13 +322,15 @@ def apply_decisions(
     Each item has ``written_name``, ``status`` (accepted, rejected or
     pending), ``tip_label`` (required when accepted) and optional ``note``,
     ``stage`` and ``row`` (the input row, for messages). Every item is
-    checked before anything is added.
+    checked before anything is added. The decisions are recorded on the
+    origin of ``tree_set_id``'s lineage (:mod:`curation.store.lineage`).
 
     Raises:
         InputError: listing every problem (unknown status, tip or name).
     """
     problems = check_decisions(session, tree_set_id, items)
-    current = current_decisions(session, tree_set_id).set_index("written_name")
+    origin = lineage_of(session, tree_set_id).origin_id
+    current = current_decisions(session, origin).set_index("written_name")
     if problems:
         raise InputError(
             f"{len(problems)} problem(s) in the decisions; nothing was recorded",
@@ -322,9 +340,14 @@ def apply_decisions(
     event = record_event(
         session,
         action,
-        subject=f"tree set {tree_set_id}",
+        subject=f"tree set {origin}",
         summary=f"{len(items)} name decision(s) by {user}",
-        parameters={"tree_set_id": tree_set_id, "count": len(items), "source": source},
+        parameters={
+            "tree_set_id": origin,
+            "asked_tree_set_id": tree_set_id,
+            "count": len(items),
+            "source": source,
+        },
         who=user,
     )
     at = now()
@@ -338,7 +361,7 @@ def apply_decisions(
         tip = item.get("tip_label") if item["status"] == "accepted" else None
         score = next((float(s) for t, s in candidates if t == tip), 100.0) if tip else 0.0
         decision = NameDecision(
-            tree_set_id=tree_set_id,
+            tree_set_id=origin,
             written_name=name,
             tip_label=tip,
             status=item["status"],
@@ -396,13 +419,14 @@ def decide_name(
 
 
 def decision_history(store: Store, tree_set_id: int, written_name: str) -> pd.DataFrame:
-    """Return every decision recorded for ``written_name`` in a tree set,
-    oldest first (the last one is in force).
+    """Return every decision recorded for ``written_name`` in a tree set's
+    lineage, oldest first (the last one is in force).
 
     Raises:
-        NotFoundError: the name has no decision.
+        NotFoundError: no such tree set, or the name has no decision.
     """
     with store.reading() as session:
+        origin = lineage_of(session, tree_set_id).origin_id
         rows = session.execute(
             select(
                 NameDecision.id,
@@ -416,7 +440,7 @@ def decision_history(store: Store, tree_set_id: int, written_name: str) -> pd.Da
                 NameDecision.note,
             )
             .where(
-                NameDecision.tree_set_id == tree_set_id,
+                NameDecision.tree_set_id == origin,
                 NameDecision.written_name == written_name,
             )
             .order_by(NameDecision.id)

@@ -22,6 +22,7 @@ from curation.names.decisions import apply_decisions
 from curation.names.summary import pending_names
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
+from curation.store.lineage import lineage_of
 from curation.trees.stored import tip_labels_of_set
 
 __all__ = ["KEYS", "ReviewResult", "review_names"]
@@ -61,7 +62,8 @@ def review_names(
     """
     pending = pending_names(store, tree_set_id)
     with store.reading() as session:
-        tips = tip_labels_of_set(session, tree_set_id)
+        # A typed tip may be any tip of the lineage (decisions are the origin's).
+        tips = tip_labels_of_set(session, lineage_of(session, tree_set_id).origin_id)
     tip_set = set(tips)
     result = ReviewResult()
     history: list[tuple[int, dict[str, Any], str]] = []

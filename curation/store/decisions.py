@@ -1,7 +1,9 @@
 """Reading the name decisions in force.
 
-A written name can have many decisions for one tree set; the latest (the
-highest id) is in force and the earlier ones are kept as history.
+A written name can have many decisions for one lineage of tree sets; the
+latest (the highest id) is in force and the earlier ones are kept as
+history. Decisions are stored on the lineage's origin and read by every
+member (see :mod:`curation.store.lineage`).
 """
 
 from __future__ import annotations
@@ -10,6 +12,7 @@ import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from curation.store.lineage import lineage_of
 from curation.store.models import NameDecision
 
 __all__ = ["DECISION_COLUMNS", "current_decisions"]
@@ -30,16 +33,22 @@ DECISION_COLUMNS = [
 
 
 def current_decisions(session: Session, tree_set_id: int) -> pd.DataFrame:
-    """Return the decision in force for each written name of a tree set.
+    """Return the decision in force for each written name of a tree set:
+    the decisions of its lineage's origin, so a set derived by a repair reads
+    the same decisions as the set it came from.
 
     Returns:
         A DataFrame with :data:`DECISION_COLUMNS`, one row per written name,
         sorted by written name. ``status`` is accepted, rejected or pending;
         ``tip_label`` is the tip an accepted decision maps the name to.
+
+    Raises:
+        NotFoundError: no such tree set.
     """
+    origin = lineage_of(session, tree_set_id).origin_id
     latest = (
         select(func.max(NameDecision.id))
-        .where(NameDecision.tree_set_id == tree_set_id)
+        .where(NameDecision.tree_set_id == origin)
         .group_by(NameDecision.written_name)
     )
     rows = session.execute(

@@ -12,6 +12,7 @@ import pandas as pd
 from pydantic import BaseModel, ConfigDict
 from sqlalchemy import select
 
+from curation import jsontext
 from curation.store.engine import Store
 from curation.store.models import Source, TraitSource
 from curation.traits.faults import FAULT_KINDS, FaultOptions
@@ -45,7 +46,7 @@ class SourceAudit(BaseModel):
 
     def to_json(self, path: str | os.PathLike[str] | None = None) -> str:
         """Return the audit as JSON text (sorted keys), written to ``path`` if given."""
-        text = json.dumps(self.to_dict(), indent=2, sort_keys=True) + "\n"
+        text = jsontext.dumps(self.to_dict(), indent=2) + "\n"
         if path is not None:
             Path(path).write_text(text, encoding="utf-8")
         return text
@@ -102,7 +103,9 @@ def audit_frame(frame: pd.DataFrame, tip_labels: list[str], names: pd.DataFrame)
     per.columns = [f"source_{c}" for c in per.columns]
     total = counted.groupby("trait")["tip_label"].nunique().rename("tips_with_values")
     traits = pd.Index(sorted(frame["trait"].unique()), name="trait")
-    coverage = pd.concat([total, per], axis=1).reindex(traits).fillna(0).astype(int)
+    # With nothing counted (no name matched yet) there is no source column.
+    coverage = total.to_frame().join(per) if len(per.columns) else total.to_frame()
+    coverage = coverage.reindex(traits).fillna(0).astype(int)
     coverage["tips"] = len(tips)
     coverage["coverage"] = (coverage["tips_with_values"] / max(len(tips), 1)).round(4)
     coverage = coverage.reset_index()

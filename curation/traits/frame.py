@@ -7,7 +7,8 @@ values never depend on whether ``flag-measurements`` was run; that command
 stores the same flags as findings for the record.
 
 A measurement counts for species values (``excluded`` is False) when it is
-matched to a tip by an accepted decision, has a usable value (a number in a
+matched to a tip by an accepted decision (of the tree set's lineage, see
+:mod:`curation.store.lineage`) that the tree set holds, has a usable value (a number in a
 convertible unit, or a known state) and carries no flag of
 :data:`curation.traits.faults.EXCLUDING` (nor an exact duplicate of a row
 naming its specimen) — unless a curator's latest review includes or
@@ -25,6 +26,7 @@ from curation.imports.measurements import MEASUREMENT_COLUMNS
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
 from curation.store.frames import select_frame
+from curation.store.lineage import get_tree_set, set_tip_labels
 from curation.store.models import Measurement, MeasurementReview, TraitSource
 from curation.traits.definitions import normalise_state, trait_definitions
 from curation.traits.faults import EXCLUDING, FAULT_KINDS, FaultOptions, find_faults
@@ -44,8 +46,10 @@ RAW_COLUMNS = ["id", "trait_source_id", "priority", *MEASUREMENT_COLUMNS]
 
 def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Return the raw measurements (:data:`RAW_COLUMNS` plus ``tip_label``
-    from the accepted decisions in force, ``review`` and ``review_reason``
-    of the latest curator review) and the trait definitions."""
+    from the accepted decisions in force for the tree set's lineage,
+    ``tip_in_set`` whether the set's own trees hold that tip, ``review`` and
+    ``review_reason`` of the latest curator review) and the trait
+    definitions."""
     frame = select_frame(
         session,
         select(
@@ -62,7 +66,11 @@ def load_measurements(session: Session, tree_set_id: int) -> tuple[pd.DataFrame,
     decisions = current_decisions(session, tree_set_id)
     accepted = decisions[decisions["status"] == "accepted"]
     tips = pd.Series(accepted["tip_label"].to_numpy(), index=accepted["written_name"].to_numpy())
-    frame["tip_label"] = frame["written_name"].map(tips)
+    # Text even when no name is matched yet (an all-missing map is float).
+    frame["tip_label"] = frame["written_name"].map(tips).astype(frame["written_name"].dtype)
+    # A set derived by pruning holds only some of the lineage's tips.
+    held = pd.Index(set_tip_labels(session, tree_set_id))
+    frame["tip_in_set"] = frame["tip_label"].isin(held)
     latest = select(func.max(MeasurementReview.id)).group_by(MeasurementReview.measurement_id)
     reviews = pd.DataFrame(
         session.execute(
@@ -143,6 +151,8 @@ def prepare_frame(
     if "review" not in frame:
         frame["review"] = None
         frame["review_reason"] = None
+    if "tip_in_set" not in frame:
+        frame["tip_in_set"] = frame["tip_label"].notna()
     traits = _trait_table(frame, definitions)
     trait_codes, trait_names = pd.factorize(frame["trait"])
     per_trait = traits.reindex(pd.Index(trait_names, dtype=object))
@@ -188,7 +198,11 @@ def prepare_frame(
     review = frame["review"].to_numpy(dtype=object)
     curator_in = (review == "include") & ~unmatched & ~no_value
     curator_out = review == "exclude"
-    excluded = (excluded & ~curator_in) | curator_out
+    # Matched to a tip of the lineage that this tree set does not hold (pruned).
+    off_set = ~unmatched & ~frame["tip_in_set"].to_numpy(dtype=bool)
+    reason = np.where(off_set, "tip_not_in_tree_set", reason)
+    curator_in = curator_in & ~off_set
+    excluded = (excluded & ~curator_in) | curator_out | off_set
     reason = np.where(curator_out, "curator", np.where(curator_in, "", reason))
     frame["excluded"] = excluded
     frame["exclusion"] = reason
@@ -201,7 +215,9 @@ def prepare_frame(
         dtype=object,
     )
     frame["flags"] = spelled[inverse.reshape(-1)] if len(frame) else pd.Series(dtype=object)
-    return frame.drop(columns=["number_ok", "group", "trait_code", "group_code", "genus_code"])
+    return frame.drop(
+        columns=["number_ok", "group", "trait_code", "group_code", "genus_code", "tip_in_set"]
+    )
 
 
 def measurements_frame(
@@ -214,8 +230,6 @@ def measurements_frame(
     Raises:
         NotFoundError: no such tree set.
     """
-    from curation.trees.stored import get_tree_set
-
     with store.reading() as session:
         get_tree_set(session, tree_set_id)
         raw, definitions = load_measurements(session, tree_set_id)

@@ -7,28 +7,11 @@ from sqlalchemy import insert, select
 from sqlalchemy.orm import Session
 
 from curation.errors import NotFoundError
+from curation.store.lineage import get_tree_set, set_tip_labels
 from curation.store.models import Tip, Tree, TreeSet
 from curation.trees.arrays import TreeArrays, parse_newick, to_newick
 
 __all__ = ["add_tree", "get_tree_set", "load_tree", "load_tree_set", "tip_labels_of_set"]
-
-
-def get_tree_set(session: Session, tree_set_id: int) -> TreeSet:
-    """Return the stored tree set ``tree_set_id``.
-
-    Raises:
-        NotFoundError: no such tree set; the message lists the ones there are.
-    """
-    tree_set = session.get(TreeSet, tree_set_id)
-    if tree_set is None:
-        known = session.scalars(select(TreeSet.id).order_by(TreeSet.id)).all()
-        raise NotFoundError(
-            f"there is no tree set {tree_set_id} in the store "
-            f"(tree sets stored: {', '.join(map(str, known)) or 'none'})",
-            field="tree set",
-            hint="see `tipledger show-store` for the stored tree sets",
-        )
-    return tree_set
 
 
 def load_tree(session: Session, tree_id: int) -> tuple[Tree, TreeArrays]:
@@ -68,13 +51,7 @@ def tip_labels_of_set(session: Session, tree_set_id: int) -> list[str]:
         NotFoundError: no such tree set.
     """
     get_tree_set(session, tree_set_id)
-    rows = session.scalars(
-        select(Tip.label)
-        .join(Tree, Tip.tree_id == Tree.id)
-        .where(Tree.tree_set_id == tree_set_id)
-        .distinct()
-    ).all()
-    return sorted(rows)
+    return set_tip_labels(session, tree_set_id)
 
 
 def add_tree(
