@@ -25,6 +25,7 @@ __all__ = [
     "SchemaVersionError",
     "NotFoundError",
     "ConflictError",
+    "StaleError",
 ]
 
 
@@ -133,3 +134,8 @@ class NotFoundError(InputError):
 
 class ConflictError(InputError):
     """The request contradicts what the store already holds."""
+
+
+class StaleError(ConflictError):
+    """A stage would build on an earlier stage that is not settled (names
+    without a decision, measurements not yet flagged)."""

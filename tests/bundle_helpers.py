@@ -9,6 +9,7 @@ from curation.imports.traits import import_traits
 from curation.imports.trees import import_trees
 from curation.names.decisions import reconcile_names
 from curation.store import Store
+from curation.traits import flag_measurements
 
 # The test tree, branch lengths on the edges (Gamma_five has no trait data):
 #
@@ -50,6 +51,8 @@ def build_store(
     tree_set_id = import_trees(store, tree_file).tree_set_id
     import_traits(store, traits)
     reconcile_names(store, tree_set_id)
+    # A bundle rests on flagged measurements (it refuses stale flags).
+    flag_measurements(store, tree_set_id)
     return tree_set_id
 
 

@@ -237,8 +237,9 @@ def test_every_tip_and_name_is_accounted_for(bundled: tuple[Store, Path, int]) -
     names = accounting[accounting["kind"] == "written name"].set_index("name")
     written = {line.split(",")[0] for line in TRAITS.splitlines()[1:]}
     assert set(names.index) == written
-    assert names.loc["Nonesuch taxon", "status"] == "excluded"
-    assert set(accounting["status"]) <= {"matched", "missing data", "excluded"}
+    # No tip matches it: it waits for review, counted apart from rejected names.
+    assert names.loc["Nonesuch taxon", "status"] == "pending review"
+    assert set(accounting["status"]) <= {"matched", "missing data", "pending review"}
 
 
 def test_failure_leaves_no_half_bundle_and_no_event(store: Store, tmp_path: Path) -> None:
@@ -287,7 +288,7 @@ def test_bad_requests_change_nothing(store: Store, tmp_path: Path) -> None:
         )
     (tmp_path / "full").mkdir()
     (tmp_path / "full" / "keep.txt").write_text("mine")
-    with pytest.raises(ConflictError, match="--replace"):
+    with pytest.raises(ConflictError, match="replace"):
         make_bundle(store, tmp_path / "full", BundleOptions(tree_id=first_tree(store, tree_set_id)))
     assert (tmp_path / "full" / "keep.txt").read_text() == "mine"
     assert not (tmp_path / "x").exists()
@@ -389,7 +390,7 @@ def test_findings_are_those_of_the_bundles_own_trees(store: Store, tmp_path: Pat
         stored = session.scalars(select(StoredFinding.code)).all()
     assert "tree.zero_length_terminal" in stored  # the other set's check found it
     findings = pd.read_csv(tmp_path / "f" / "findings.csv")
-    checks = findings[findings["event_action"] == "check_trees"]
+    checks = findings[findings["event_action"] == "check-trees"]
     assert len(checks) > 0  # the bundle's own tree was checked too
     # The other set's zero-length tip (a finding there) must not appear.
     assert not checks["code"].eq("tree.zero_length_terminal").any()

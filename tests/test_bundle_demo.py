@@ -50,8 +50,8 @@ def test_planted_tree_defects_are_in_the_findings_with_what_was_done(demo: Path)
     # The demo repairs the dated tree (make ultrametric, lengthen zero tips)
     # and leaves polytomies as they are: each finding says which.
     actions = dict(zip(checks["code"], checks["action"], strict=False))
-    assert actions["tree.zero_length_terminal"] == "repaired: lengthen_zero_tips"
-    assert actions["tree.not_ultrametric"] == "repaired: make_ultrametric"
+    assert actions["tree.zero_length_terminal"] == "repaired: lengthen-zero-tips"
+    assert actions["tree.not_ultrametric"] == "repaired: make-ultrametric"
     assert actions["tree.polytomy"] == "reported; tree used as stored"
 
 
@@ -101,4 +101,4 @@ def test_report_shows_each_kind_of_planted_defect_and_its_handling(demo: Path) -
             cells = f"<td>{code}</td><td>{group['severity'].iloc[0]}</td><td>{action}</td>"
             assert cells in summary, (code, action)
             assert f'{cells}<td class="num">{len(group)}</td>' in summary
-    assert "Repairs applied" in page and "make_ultrametric" in page
+    assert "Repairs applied" in page and "make-ultrametric" in page

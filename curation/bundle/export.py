@@ -9,7 +9,6 @@ nor a partial event.
 
 from __future__ import annotations
 
-import json
 import os
 import shutil
 import tempfile
@@ -18,8 +17,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from pydantic import BaseModel
+from pydantic import BaseModel, Field
 
+from curation import jsontext
 from curation.bundle.files import (
     CHECKSUM_FILE,
     checksum_lines,
@@ -31,7 +31,7 @@ from curation.bundle.files import (
 from curation.bundle.inputs import BundleInputs, BundleOptions, gather_bundle_inputs
 from curation.bundle.package import data_package, provenance
 from curation.bundle.report import render_report
-from curation.bundle.tables import BundleTables, build_tables
+from curation.bundle.tables import NAME_OUTCOMES, BundleTables, build_tables
 from curation.errors import ConflictError, InputError, TipledgerError
 from curation.progress import Progress
 from curation.store.engine import Store
@@ -55,11 +55,16 @@ class BundleResult(BaseModel):
     traits: list[str]
     files: list[str]
     tips_pruned: int
-    names_excluded: int
+    names: dict[str, int] = Field(
+        description="written names by outcome (matched, missing data, excluded, rejected, "
+        "pending review, not yet reconciled)"
+    )
+    measurements_unflagged: int = Field(description="measurements not covered by the flagging")
+    warnings: list[str] = Field(description="what the bundle's user should know")
 
 
 def _json(data: Any) -> str:
-    return json.dumps(data, indent=2, sort_keys=True, ensure_ascii=False, default=str) + "\n"
+    return jsontext.dumps(data, indent=2) + "\n"
 
 
 def _bundle_trees(inputs: BundleInputs, keep: list[str]) -> list[tuple[str, TreeArrays]]:
@@ -207,6 +212,8 @@ def make_bundle(
     Raises:
         ConflictError: ``folder`` exists and is not empty (and ``replace``
             is False).
+        StaleError: written names without a decision or measurements not
+            yet flagged, unless ``options.allow_stale``.
         NotFoundError: the tree or tree set is not in the store.
         InputError: bad options (see :class:`BundleOptions`), no tip with
             data, or a matrix above its memory limit.
@@ -216,7 +223,7 @@ def make_bundle(
         raise ConflictError(
             f"the folder {str(target)!r} exists and is not empty",
             file=str(target),
-            hint="choose a new folder, or give --replace to overwrite the bundle there",
+            hint="choose a new folder, or replace the bundle there (replace)",
         )
     inputs = gather_bundle_inputs(store, options)
     tables = build_tables(inputs)
@@ -224,7 +231,7 @@ def make_bundle(
         raise InputError(
             "no tip of the chosen tree has trait data, so the bundle would be empty",
             field="tree",
-            hint="run reconcile-names first, or give --missing keep to keep every tip",
+            hint="reconcile the names first, or keep every tip (missing='keep')",
         )
     target.parent.mkdir(parents=True, exist_ok=True)
     work = Path(tempfile.mkdtemp(prefix=f".{target.name}.partial-", dir=target.parent))
@@ -243,7 +250,7 @@ def make_bundle(
         with store.transaction() as session:
             event = record_event(
                 session,
-                "make_bundle",
+                "make-bundle",
                 subject=str(target),
                 summary=f"bundle of {len(tables.keep)} tips and {len(tables.traits)} traits",
                 parameters={"options": options.model_dump(mode="json"), "files": files},
@@ -272,6 +279,8 @@ def make_bundle(
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
     accounting = tables.accounting
+    outcomes = accounting.loc[accounting["kind"] == "written name", "status"].value_counts()
+    names = {o: int(outcomes.get(o, 0)) for o in NAME_OUTCOMES}
     return BundleResult(
         folder=str(target),
         zip_path=str(zip_path) if zip_path else None,
@@ -282,7 +291,32 @@ def make_bundle(
         traits=list(tables.traits["trait"]),
         files=files,
         tips_pruned=int(((accounting["kind"] == "tip") & ~accounting["in_bundle"]).sum()),
-        names_excluded=int(
-            ((accounting["kind"] == "written name") & (accounting["status"] == "excluded")).sum()
-        ),
+        names=names,
+        measurements_unflagged=len(inputs.unflagged),
+        warnings=bundle_warnings(names, len(inputs.unflagged)),
     )
+
+
+def bundle_warnings(names: dict[str, int], unflagged: int) -> list[str]:
+    """Return what a bundle's user should know about names and flags not
+    settled: names waiting for review, and (made with stale input allowed)
+    names without a decision and measurements not yet flagged."""
+    out = []
+    if names.get("pending review"):
+        n = names["pending review"]
+        out.append(
+            f"{n} written name{'s' if n != 1 else ''} still wait{'s' if n == 1 else ''} for "
+            "review; their measurements are not in the species values"
+        )
+    if names.get("not yet reconciled"):
+        n = names["not yet reconciled"]
+        out.append(
+            f"{n} written name{'s have' if n != 1 else ' has'} no name decision yet "
+            "(listed in the accounting as not yet reconciled)"
+        )
+    if unflagged:
+        out.append(
+            f"{unflagged} measurement{'s are' if unflagged != 1 else ' is'} not covered by the "
+            "latest flagging (listed in the accounting as not yet flagged)"
+        )
+    return out

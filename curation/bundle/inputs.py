@@ -11,30 +11,35 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Literal
 
+import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from sqlalchemy import select
 
-from curation.errors import InputError
+from curation.errors import InputError, StaleError
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
-from curation.store.models import (
-    LedgerEvent,
-    MeasurementReview,
-    Source,
-    StoredFinding,
-    TraitSource,
-    Tree,
-    TreeSet,
+from curation.store.lineage import Lineage, get_tree_set, lineage_of
+from curation.store.models import LedgerEvent, Measurement, Source, TraitSource, TreeSet
+from curation.store.provenance import (
+    events_in_force,
+    lineage_findings,
+    reviews_in_force,
+    sources_in_force,
+)
+from curation.store.staleness import (
+    Staleness,
+    lineage_staleness,
+    stale_measurement_ids,
+    undecided_names,
 )
 from curation.trees.arrays import TreeArrays
-from curation.trees.stored import get_tree_set, load_tree, load_tree_set
+from curation.trees.stored import load_tree, load_tree_set
 
 __all__ = [
     "MEASUREMENT_FIELDS",
     "BundleInputs",
     "BundleOptions",
-    "decision_tree_set",
     "gather_bundle_inputs",
 ]
 
@@ -87,6 +92,11 @@ class BundleOptions(BaseModel):
     diagnostics: bool = Field(True, description="phylogenetic diagnostics per continuous trait")
     permutations: int = Field(1000, ge=0, description="permutations of Blomberg's K test")
     seed: int = Field(0, description="seed of the permutations")
+    allow_stale: bool = Field(
+        False,
+        description="make the bundle even when written names have no decision yet or "
+        "measurements are not yet flagged, listing them in the accounting",
+    )
 
     @model_validator(mode="after")
     def _one_tree_choice(self) -> BundleOptions:
@@ -106,8 +116,13 @@ class BundleInputs:
     Attributes:
         trees: (tree row id, name, array view) of every tree, in file order.
         tree_set: the tree set the trees belong to.
-        decision_set_id: the tree set whose name decisions apply (the
-            original a derived set was repaired from).
+        lineage: the tree set's lineage; its origin's name decisions apply.
+        decision_set_id: the lineage's origin (where the decisions are).
+        staleness: what is not yet settled (names without a decision,
+            measurements not yet flagged).
+        undecided: every written name without a decision, sorted.
+        unflagged: ids of the measurements not covered by the latest
+            flagging.
         species: one row per (tip_label, trait) with kind, scale, unit, n,
             mean, sd, se, median, state and measurement_ids.
         measurements: the measurements of the chosen traits whose names map
@@ -117,15 +132,21 @@ class BundleInputs:
         findings: the latest findings of each check, with their event.
         sources: every stored source that fed the bundle.
         repairs: the chain of repairs from the original trees to these.
-        exclusions: curators' exclusions and re-inclusions in force.
-        events: the ledger events the bundle rests on.
+        exclusions: curators' exclusions and re-inclusions in force of the
+            measurements of the trees' tips.
+        events: the ledger events the bundle rests on, in order
+            (:func:`curation.store.provenance.events_in_force`).
     """
 
     options: BundleOptions
     store_url: str
     trees: list[tuple[int, str, TreeArrays]]
     tree_set: dict[str, Any]
+    lineage: Lineage
     decision_set_id: int
+    staleness: Staleness
+    undecided: list[str]
+    unflagged: pd.DataFrame
     species: pd.DataFrame
     measurements: pd.DataFrame
     names: pd.DataFrame
@@ -134,18 +155,6 @@ class BundleInputs:
     repairs: list[dict[str, Any]]
     exclusions: pd.DataFrame
     events: pd.DataFrame
-
-
-def decision_tree_set(session: Any, tree_set: TreeSet) -> TreeSet:
-    """Return the tree set whose name decisions apply to ``tree_set``: the
-    set itself, or for a derived (repaired) set the original it came from
-    (repairs keep tip labels, so the decisions carry over)."""
-    current = tree_set
-    seen = {current.id}
-    while current.derived_from_id is not None and current.derived_from_id not in seen:
-        current = get_tree_set(session, current.derived_from_id)
-        seen.add(current.id)
-    return current
 
 
 def _repair_chain(session: Any, tree_set: TreeSet) -> list[dict[str, Any]]:
@@ -176,44 +185,20 @@ def _trait_sources(session: Any) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["trait_source_id", "trait_source", "source_id"])
 
 
-def _reviews_in_force(session: Any) -> pd.DataFrame:
-    latest = select(MeasurementReview).order_by(MeasurementReview.id)
-    rows = [
-        {
-            "measurement_id": r.measurement_id,
-            "action": r.action,
-            "reason": r.reason,
-            "who": r.who,
-            "at": r.at.isoformat(),
-            "event_id": r.event_id,
-        }
-        for r in session.scalars(latest)
-    ]
-    frame = pd.DataFrame(
-        rows, columns=["measurement_id", "action", "reason", "who", "at", "event_id"]
-    )
-    return frame.drop_duplicates("measurement_id", keep="last").reset_index(drop=True)
-
-
 def _curated(
-    store: Store, decision_set_id: int, options: BundleOptions, trait_sources: pd.DataFrame
-) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Species values by the traits stage, and the measurements (of the
-    chosen traits) with their tip, converted value, flags and whether they
-    count, read once for both."""
+    store: Store,
+    tree_set_id: int,
+    options: BundleOptions,
+    trait_sources: pd.DataFrame,
+    unflagged_ids: np.ndarray,
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Species values by the traits stage; the measurements (of the chosen
+    traits) with their tip, converted value, flags and whether they count;
+    and those of them not yet flagged: read once for all three."""
     from curation.traits import aggregate_species, measurements_frame
 
-    frame = measurements_frame(store, decision_set_id)
+    frame = measurements_frame(store, tree_set_id)
     if options.traits:
-        present = set(frame["trait"].unique())
-        unknown = [t for t in options.traits if t not in present]
-        if unknown:
-            raise InputError(
-                f"no measurements of trait(s) {', '.join(map(repr, unknown))} "
-                f"(traits stored: {', '.join(sorted(present)) or 'none'})",
-                field="trait",
-                hint="give --trait with one of the stored traits",
-            )
         frame = frame[frame["trait"].isin(options.traits)]
     species = aggregate_species(frame, traits=options.traits, policy=options.policy)
     # Only the columns a bundle writes are kept: the frame of the traits
@@ -233,63 +218,99 @@ def _curated(
     for column in MEASUREMENT_FIELDS:
         if column not in measurements:
             measurements[column] = frame[column]
-    measurements = measurements[[*MEASUREMENT_FIELDS, "used"]]
-    return species, measurements.reset_index(drop=True)
+    measurements = measurements[[*MEASUREMENT_FIELDS, "used"]].reset_index(drop=True)
+    unflagged = measurements[measurements["measurement_id"].isin(unflagged_ids)]
+    return species, measurements, unflagged.reset_index(drop=True)
 
 
-def _findings(session: Any, tree_set_ids: set[int]) -> pd.DataFrame:
-    """The findings of the latest event of each kind of check (a later
-    check of the same thing supersedes an earlier one), leaving out checks
-    of tree sets (and their trees) other than ``tree_set_ids``."""
-    rows = session.execute(
-        select(
-            StoredFinding.id,
-            StoredFinding.code,
-            StoredFinding.severity,
-            StoredFinding.subject,
-            StoredFinding.message,
-            StoredFinding.details,
-            LedgerEvent.id,
-            LedgerEvent.action,
-            LedgerEvent.subject,
+def _check_traits(session: Any, traits: list[str] | None) -> None:
+    if not traits:
+        return
+    present = set(session.scalars(select(Measurement.trait).distinct()).all())
+    unknown = [t for t in traits if t not in present]
+    if unknown:
+        raise InputError(
+            f"no measurements of trait(s) {', '.join(map(repr, unknown))} "
+            f"(traits stored: {', '.join(sorted(present)) or 'none'})",
+            field="trait",
+            hint="give one of the stored traits",
         )
-        .join(LedgerEvent, StoredFinding.event_id == LedgerEvent.id)
-        .order_by(StoredFinding.id)
-    ).all()
-    columns = [
-        "finding_id",
-        "code",
-        "severity",
-        "subject",
-        "message",
-        "details",
-        "event_id",
-        "event_action",
-        "event_subject",
+
+
+def _refuse_stale(staleness: Staleness, undecided: int, unflagged: int, described: str) -> None:
+    """Raise :class:`StaleError` when names or flags are not settled."""
+    if not (undecided or unflagged):
+        return
+    problems = [
+        p
+        for p in staleness.problems()
+        if (undecided and "name decision" in p) or (unflagged and "flagged" in p)
     ]
-    frame = pd.DataFrame(rows, columns=columns)
-    if frame.empty:
-        return frame
-    latest = frame.groupby(["event_action", "event_subject"])["event_id"].transform("max")
-    frame = frame[frame["event_id"] == latest]
-    tree_ids = set(session.scalars(select(Tree.id).where(Tree.tree_set_id.in_(tree_set_ids))).all())
-    named = frame["event_subject"].str.extract(r"^tree (set )?(\d+)$")
-    number = pd.to_numeric(named[1], errors="coerce")
-    about_set = named[0].notna()
-    elsewhere = (about_set & ~number.isin(tree_set_ids)) | (
-        ~about_set & number.notna() & ~number.isin(tree_ids)
+    raise StaleError(
+        f"{described} rests on stages that are not settled: " + "; ".join(problems),
+        field="tree set",
+        hint="settle them first, or allow stale input (allow_stale) to make the bundle anyway "
+        "with them listed in its accounting as not yet reconciled / not yet flagged",
     )
-    return frame[~elsewhere].reset_index(drop=True)
+
+
+def _source_frame(sources: list[Source]) -> pd.DataFrame:
+    return pd.DataFrame(
+        [
+            {
+                "source_id": s.id,
+                "kind": s.kind,
+                "format": s.format,
+                "file_name": s.file_name,
+                "sha256": s.sha256,
+                "size_bytes": s.size_bytes,
+                "label": s.label,
+                "citation": s.citation,
+                "licence": s.licence,
+                "imported_at": s.imported_at.isoformat(),
+                "event_id": s.event_id,
+            }
+            for s in sources
+        ]
+    )
+
+
+def _event_frame(session: Any, ids: list[int]) -> pd.DataFrame:
+    rows = [
+        {
+            "event_id": e.id,
+            "at": e.at.isoformat(),
+            "who": e.who,
+            "action": e.action,
+            "subject": e.subject,
+            "summary": e.summary,
+            "parameters": e.parameters,
+        }
+        for e in session.scalars(
+            select(LedgerEvent).where(LedgerEvent.id.in_(ids)).order_by(LedgerEvent.id)
+        )
+    ]
+    return pd.DataFrame(
+        rows, columns=["event_id", "at", "who", "action", "subject", "summary", "parameters"]
+    )
 
 
 def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
     """Read everything a bundle needs from ``store``.
+
+    The tree set's lineage decides which name decisions apply
+    (:mod:`curation.store.lineage`). Unless ``options.allow_stale``, a
+    bundle is refused while written names have no decision or measurements
+    of its traits are not covered by the latest flagging
+    (:mod:`curation.store.staleness`).
 
     Returns:
         :class:`BundleInputs`.
 
     Raises:
         NotFoundError: the tree or tree set is not in the store.
+        StaleError: names without a decision or measurements not yet
+            flagged (the message counts them and names what settles them).
         InputError: a trait asked for has no measurements, or a matrix is
             asked for a set of several trees.
     """
@@ -306,57 +327,21 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
                 f"a variance-covariance matrix is made for one tree; tree set {tree_set.id} "
                 f"holds {len(trees)} trees",
                 field="matrix",
-                hint="give --tree ID for the matrix, or leave out --matrix",
+                hint="choose one tree for the matrix, or leave the matrix out",
             )
-        original = decision_tree_set(session, tree_set)
-        names = current_decisions(session, original.id)
-        reviews = _reviews_in_force(session)
+        _check_traits(session, options.traits)
+        lineage = lineage_of(session, tree_set.id)
+        staleness = lineage_staleness(session, tree_set.id)
+        undecided = undecided_names(session, lineage)
+        unflagged_ids = stale_measurement_ids(session, tree_set.id, traits=options.traits)
+        if not options.allow_stale:
+            _refuse_stale(staleness, len(undecided), len(unflagged_ids), lineage.describe())
+        names = current_decisions(session, tree_set.id)
+        reviews = reviews_in_force(session)
         trait_sources = _trait_sources(session)
-        tree_source_ids = {
-            sid
-            for sid in session.scalars(
-                select(Tree.source_id).where(Tree.tree_set_id == original.id)
-            ).all()
-            if sid is not None
-        }
-        if original.source_id is not None:
-            tree_source_ids.add(original.source_id)
-        sources = pd.DataFrame(
-            [
-                {
-                    "source_id": s.id,
-                    "kind": s.kind,
-                    "format": s.format,
-                    "file_name": s.file_name,
-                    "sha256": s.sha256,
-                    "size_bytes": s.size_bytes,
-                    "label": s.label,
-                    "citation": s.citation,
-                    "licence": s.licence,
-                    "imported_at": s.imported_at.isoformat(),
-                    "event_id": s.event_id,
-                }
-                for s in session.scalars(select(Source).order_by(Source.id))
-                if s.kind != "tree" or s.id in tree_source_ids
-            ]
-        )
-        events = pd.DataFrame(
-            [
-                {
-                    "event_id": e.id,
-                    "at": e.at.isoformat(),
-                    "who": e.who,
-                    "action": e.action,
-                    "subject": e.subject,
-                    "summary": e.summary,
-                    "parameters": e.parameters,
-                }
-                for e in session.scalars(select(LedgerEvent).order_by(LedgerEvent.id))
-            ]
-        )
+        sources = _source_frame(sources_in_force(session, lineage))
         repairs = _repair_chain(session, tree_set)
-        chain = {tree_set.id, original.id} | {r["tree_set_id"] for r in repairs}
-        findings = _findings(session, chain)
+        findings = lineage_findings(session, lineage)
         tree_set_info = {
             "id": tree_set.id,
             "name": tree_set.name,
@@ -364,19 +349,37 @@ def gather_bundle_inputs(store: Store, options: BundleOptions) -> BundleInputs:
             "derived_from_id": tree_set.derived_from_id,
             "tree_count": tree_set.tree_count,
         }
-    species, measurements = _curated(store, original.id, options, trait_sources)
+    species, measurements, unflagged = _curated(
+        store, tree_set.id, options, trait_sources, unflagged_ids
+    )
+    tips = pd.Index(sorted(set().union(*(set(a.tip_labels) for _, _, a in trees))))
+    on_trees = measurements.loc[measurements["tip_label"].isin(tips), "measurement_id"]
+    exclusions = reviews[reviews["measurement_id"].isin(on_trees)].reset_index(drop=True)
+    with store.reading() as session:
+        event_ids = events_in_force(
+            session,
+            lineage,
+            traits=measurements["trait"].unique().tolist(),
+            measurement_ids=on_trees.tolist(),
+            finding_event_ids=findings["event_id"].unique().tolist() if len(findings) else [],
+        )
+        events = _event_frame(session, event_ids)
     return BundleInputs(
         options=options,
         store_url=store.display_url(),
         trees=trees,
         tree_set=tree_set_info,
-        decision_set_id=original.id,
+        lineage=lineage,
+        decision_set_id=lineage.origin_id,
+        staleness=staleness,
+        undecided=undecided,
+        unflagged=unflagged,
         species=species.reset_index(drop=True),
         measurements=measurements,
         names=names,
         findings=findings,
         sources=sources,
         repairs=repairs,
-        exclusions=reviews,
+        exclusions=exclusions,
         events=events,
     )

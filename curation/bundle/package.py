@@ -33,7 +33,6 @@ DEPENDENCIES = [
     "pydantic",
     "sqlalchemy",
     "alembic",
-    "matplotlib",
 ]
 
 TABLE_DESCRIPTIONS = {
@@ -183,7 +182,10 @@ def provenance(
     inputs: BundleInputs, tables: BundleTables, extra: dict[str, Any] | None = None
 ) -> dict[str, Any]:
     """Return ``provenance.json``: the inputs with their sha256, every name
-    decision, exclusion and repair that shaped the bundle, the options, the
+    decision, exclusion and repair that shaped the bundle, every ledger
+    event its content depends on in order
+    (:func:`curation.store.provenance.events_in_force`), what was not yet
+    settled when it was made with stale input allowed, the options, the
     software versions, the store and the creation time (SOURCE_DATE_EPOCH
     when set)."""
     decisions = inputs.names
@@ -202,19 +204,7 @@ def provenance(
         }
         for r in decisions.itertuples(index=False)
     ]
-    kept = inputs.exclusions["measurement_id"].isin(tables.measurements["measurement_id"])
-    exclusions = inputs.exclusions[kept]
-    event_ids = sorted(
-        {int(e) for e in inputs.sources["event_id"].dropna()}
-        | {int(r["event_id"]) for r in inputs.repairs if r["event_id"] is not None}
-        | {int(e) for e in exclusions["event_id"]}
-        | {int(e) for e in inputs.findings.get("event_id", [])}
-    )
-    events = (
-        inputs.events[inputs.events["event_id"].isin(event_ids)]
-        if event_ids
-        else inputs.events.iloc[:0]
-    )
+    exclusions = inputs.exclusions
     return {
         "created": now_iso(),
         "store": inputs.store_url,
@@ -225,11 +215,22 @@ def provenance(
             for tid, name, a in inputs.trees
         ],
         "name_decisions_from_tree_set": inputs.decision_set_id,
+        "lineage": {
+            "origin_tree_set": inputs.lineage.origin_id,
+            "path": list(inputs.lineage.path),
+        },
         "inputs": _records(inputs.sources.drop(columns=["event_id"])),
         "decisions": decision_records,
         "exclusions": _records(exclusions),
         "repairs": inputs.repairs,
-        "events": _records(events),
+        "events": _records(inputs.events),
+        "not_settled": {
+            "written_names_not_yet_reconciled": list(inputs.undecided),
+            "measurements_not_yet_flagged": [
+                int(i) for i in inputs.unflagged["measurement_id"].to_numpy()
+            ],
+            "last_flag_event": inputs.staleness.last_flag_event,
+        },
         "versions": versions(),
         **(extra or {}),
     }

@@ -14,7 +14,7 @@ import pandas as pd
 
 from curation.bundle.inputs import BundleInputs
 from curation.bundle.overview import TreeOverview, overview_tree
-from curation.bundle.tables import BundleTables
+from curation.bundle.tables import NAME_OUTCOMES, BundleTables
 from curation.trees.arrays import TreeArrays
 
 __all__ = [
@@ -278,8 +278,14 @@ def render_report(
             ("tips in the bundle", len(tables.keep)),
             ("tips with trait data", int((tips["status"] == "matched").sum())),
             ("written names", len(names)),
-            ("written names matched", int((names["status"] == "matched").sum())),
-            ("written names excluded", int((names["status"] == "excluded").sum())),
+            *(
+                (f"written names {outcome}", int((names["status"] == outcome).sum()))
+                for outcome in NAME_OUTCOMES
+            ),
+            (
+                "measurements not yet flagged",
+                int((accounting["status"] == "not yet flagged").sum()),
+            ),
             ("traits", len(tables.traits)),
             ("findings", len(tables.findings)),
             ("repairs applied", len(inputs.repairs)),
@@ -379,8 +385,10 @@ def render_report(
         _table(tables.findings.drop(columns=["details"], errors="ignore")),
         "<h2>Repairs applied</h2>",
         _table(pd.DataFrame(inputs.repairs).drop(columns=["parameters"], errors="ignore")),
-        "<h2>Names excluded or waiting</h2>",
-        _table(names[names["status"] == "excluded"][["name", "reason"]]),
+        "<h2>Names not matched: rejected, waiting for review, not yet reconciled</h2>",
+        _table(
+            names[~names["status"].isin(["matched", "missing data"])][["name", "status", "reason"]]
+        ),
     ]
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'

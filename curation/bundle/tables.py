@@ -6,17 +6,18 @@ written name."""
 from __future__ import annotations
 
 import itertools
-import json
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from curation import jsontext
 from curation.bundle.inputs import MEASUREMENT_FIELDS, BundleInputs
 from curation.names.decisions import note_info
 from curation.store.decisions import DECISION_COLUMNS
 
 __all__ = [
+    "NAME_OUTCOMES",
     "BundleTables",
     "build_tables",
     "finding_actions",
@@ -25,13 +26,13 @@ __all__ = [
 # What a repair does about a kind of tree finding (the repair names are the
 # ones the trees stage records on derived tree sets).
 REPAIR_ADDRESSES = {
-    "tree.polytomy": {"resolve_polytomies"},
-    "tree.basal_trifurcation": {"resolve_polytomies"},
-    "tree.not_ultrametric": {"make_ultrametric"},
-    "tree.zero_length_terminal": {"lengthen_zero_tips"},
-    "tree.zero_length_internal": {"collapse_short_branches"},
-    "tree.short_internal": {"collapse_short_branches"},
-    "tree.tips_not_shared": {"prune_trees"},
+    "tree.polytomy": {"resolve-polytomies"},
+    "tree.basal_trifurcation": {"resolve-polytomies"},
+    "tree.not_ultrametric": {"make-ultrametric"},
+    "tree.zero_length_terminal": {"lengthen-zero-tips"},
+    "tree.zero_length_internal": {"collapse-short-branches"},
+    "tree.short_internal": {"collapse-short-branches"},
+    "tree.tips_not_shared": {"prune-trees"},
 }
 
 
@@ -165,6 +166,17 @@ def _tip_accounting(
     )
 
 
+#: The outcomes of a written name in the accounting, each kept apart.
+NAME_OUTCOMES = (
+    "matched",
+    "missing data",
+    "excluded",
+    "rejected",
+    "pending review",
+    "not yet reconciled",
+)
+
+
 def _name_accounting(
     inputs: BundleInputs, all_tips: list[str], keep: set[str], with_data: set[str]
 ) -> pd.DataFrame:
@@ -174,7 +186,8 @@ def _name_accounting(
     accepted = status == "accepted"
     on_tree = accepted & tip.isin(set(all_tips)).to_numpy(dtype=bool)
     rejected = status == "rejected"
-    reason = np.full(len(names), "waiting for review (pending)", dtype=object)
+    pending = status == "pending"
+    reason = np.full(len(names), "", dtype=object)
     decided_by = names["decided_by"].astype(str)
     reason[on_tree] = (names["stage"].astype(str) + " match, decided by " + decided_by)[on_tree]
     elsewhere = accepted & ~on_tree
@@ -186,31 +199,87 @@ def _name_accounting(
         f"rejected by {who}: {_short_note(note) or 'no note'}"
         for who, note in zip(decided_by[rejected], names["note"][rejected], strict=True)
     ]
+    reason[pending] = [
+        f"waiting for review ({stage} stage, score {score:.0f}): {_short_note(note) or 'no note'}"
+        for stage, score, note in zip(
+            names["stage"][pending], names["score"][pending], names["note"][pending], strict=True
+        )
+    ]
     has_data = tip.isin(with_data).to_numpy(dtype=bool)
-    return pd.DataFrame(
+    outcome = np.select(
+        [on_tree & has_data, on_tree, elsewhere, rejected, pending],
+        ["matched", "missing data", "excluded", "rejected", "pending review"],
+        "excluded",
+    ).astype(object)
+    decided = pd.DataFrame(
         {
             "kind": "written name",
             "name": names["written_name"],
             "tip_label": tip.where(accepted, None),
-            "status": np.where(on_tree, np.where(has_data, "matched", "missing data"), "excluded"),
+            "status": outcome,
             "in_bundle": accepted & tip.isin(keep).to_numpy(dtype=bool),
             "reason": reason,
+        },
+        columns=ACCOUNTING_COLUMNS,
+    )
+    undecided = pd.DataFrame(
+        {
+            "kind": "written name",
+            "name": pd.Series(inputs.undecided, dtype=object),
+            "tip_label": None,
+            "status": "not yet reconciled",
+            "in_bundle": False,
+            "reason": "no name decision yet (imported after the last reconciliation); "
+            "made with stale input allowed",
+        },
+        columns=ACCOUNTING_COLUMNS,
+    )
+    return pd.concat([decided, undecided], ignore_index=True) if len(undecided) else decided
+
+
+def _measurement_accounting(inputs: BundleInputs, keep: set[str]) -> pd.DataFrame:
+    """The measurements the latest flagging does not cover, one row each."""
+    m = inputs.unflagged
+    staleness = inputs.staleness
+    redefined = set(staleness.redefined_since_flagging)
+    if staleness.last_flag_event is None:
+        why = pd.Series("the measurements were never flagged", index=m.index, dtype=object)
+    else:
+        why = pd.Series(
+            f"imported after the latest flagging (event {staleness.last_flag_event})",
+            index=m.index,
+            dtype=object,
+        )
+        changed = m["trait"].isin(redefined)
+        why[changed] = (
+            "the definition of " + m.loc[changed, "trait"].astype(str) + " changed after the "
+            f"latest flagging (event {staleness.last_flag_event})"
+        )
+    return pd.DataFrame(
+        {
+            "kind": "measurement",
+            "name": "measurement " + m["measurement_id"].astype(str),
+            "tip_label": m["tip_label"],
+            "status": "not yet flagged",
+            "in_bundle": m["used"].to_numpy(dtype=bool) & m["tip_label"].isin(keep).to_numpy(),
+            "reason": why + "; made with stale input allowed",
         },
         columns=ACCOUNTING_COLUMNS,
     )
 
 
 def _accounting(inputs: BundleInputs, all_tips: list[str], keep: set[str]) -> pd.DataFrame:
-    """Every tip and every written name with its outcome (matched, missing
-    data, excluded) and why, sorted by kind then name."""
+    """Every tip and every written name with its outcome and why (a name:
+    one of :data:`NAME_OUTCOMES`), and every measurement not yet flagged,
+    sorted by kind then name."""
     with_data = set(inputs.species["tip_label"].unique()) if not inputs.species.empty else set()
-    frame = pd.concat(
-        [
-            _tip_accounting(inputs, all_tips, keep, with_data),
-            _name_accounting(inputs, all_tips, keep, with_data),
-        ],
-        ignore_index=True,
-    )
+    parts = [
+        _tip_accounting(inputs, all_tips, keep, with_data),
+        _name_accounting(inputs, all_tips, keep, with_data),
+    ]
+    if len(inputs.unflagged):
+        parts.append(_measurement_accounting(inputs, keep))
+    frame = pd.concat(parts, ignore_index=True)
     return frame.sort_values(["kind", "name"], kind="stable").reset_index(drop=True)
 
 
@@ -268,9 +337,7 @@ def build_tables(inputs: BundleInputs) -> BundleTables:
     findings = inputs.findings.copy()
     if not findings.empty:
         findings["action"] = finding_actions(inputs, findings)
-        findings["details"] = findings["details"].map(
-            lambda d: json.dumps(d, sort_keys=True, default=str)
-        )
+        findings["details"] = findings["details"].map(lambda d: jsontext.dumps(d))
         findings = findings.sort_values(["code", "subject", "finding_id"]).reset_index(drop=True)
         findings = findings[FINDING_COLUMNS]
     else:

@@ -7,7 +7,6 @@ Every check runs and every problem is listed; nothing stops at the first.
 from __future__ import annotations
 
 import csv
-import json
 import os
 import tempfile
 import zipfile
@@ -20,6 +19,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 from pydantic import BaseModel
 
+from curation import jsontext
 from curation.bundle.files import CHECKSUM_FILE, read_checksums, sha256_file
 from curation.errors import NotFoundError, TipledgerError
 
@@ -214,7 +214,7 @@ def _check_package(folder: Path, problems: list[str]) -> None:
         problems.append("datapackage.json is missing")
         return
     try:
-        descriptor = json.loads(path.read_text(encoding="utf-8"))
+        descriptor = jsontext.loads(path.read_text(encoding="utf-8"))
     except ValueError as exc:
         problems.append(f"datapackage.json is not valid JSON: {exc}")
         return
@@ -237,7 +237,7 @@ def _check_provenance(folder: Path, problems: list[str]) -> None:
         problems.append("provenance.json is missing")
         return
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
+        data = jsontext.loads(path.read_text(encoding="utf-8"))
     except ValueError as exc:
         problems.append(f"provenance.json is not valid JSON: {exc}")
         return

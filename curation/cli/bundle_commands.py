@@ -49,6 +49,15 @@ def make_bundle_command(
     replace: Annotated[
         bool, typer.Option("--replace", help="Overwrite a bundle in FOLDER.")
     ] = False,
+    allow_stale: Annotated[
+        bool,
+        typer.Option(
+            "--allow-stale",
+            help="Make the bundle even when written names have no decision yet or "
+            "measurements are not yet flagged (refused by default); they are listed in "
+            "the accounting as not yet reconciled / not yet flagged.",
+        ),
+    ] = False,
     store: StoreOption = None,
     user: UserOption = None,
 ) -> None:
@@ -58,6 +67,7 @@ def make_bundle_command(
     Example: tipledger make-bundle demo-bundle --tree 1 --zip
     """
     from curation.bundle import BundleOptions, make_bundle
+    from curation.errors import StaleError
 
     options = BundleOptions(
         tree_id=tree,
@@ -71,16 +81,30 @@ def make_bundle_command(
         diagnostics=diagnostics,
         permutations=permutations,
         seed=seed,
+        allow_stale=allow_stale,
     )
     with open_store(store) as opened, progress_bar("diagnosing traits") as progress:
-        result = make_bundle(opened, folder, options, replace=replace, who=user, progress=progress)
+        try:
+            result = make_bundle(
+                opened, folder, options, replace=replace, who=user, progress=progress
+            )
+        except StaleError as exc:
+            exc.hint = (
+                "run `tipledger reconcile-names --tree-set N` and `tipledger flag-measurements "
+                "--tree-set N` for the tree set named above, or give --allow-stale to make the "
+                "bundle anyway with them listed in its accounting"
+            )
+            raise
+    names = ", ".join(f"{n} {outcome}" for outcome, n in result.names.items() if n)
     console.print(
         f"Bundle in {result.folder}: {result.tips} tips, {len(result.traits)} traits, "
-        f"{len(result.files)} files ({result.tips_pruned} tips pruned, "
-        f"{result.names_excluded} written names excluded; ledger event {result.event_id})."
+        f"{len(result.files)} files ({result.tips_pruned} tips pruned; written names: "
+        f"{names or 'none'}; ledger event {result.event_id})."
     )
     if result.zip_path:
         console.print(f"Zip: {result.zip_path}")
+    for warning in result.warnings:
+        console.print(f"warning: {warning}", markup=False)
 
 
 @app.command("verify-bundle")

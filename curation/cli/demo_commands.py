@@ -8,7 +8,7 @@ import pandas as pd
 import typer
 
 from curation.cli.app import app, console
-from curation.cli.output import print_counts, print_frame
+from curation.cli.output import print_frame, print_store_summary
 from curation.demo.generator import DEFAULT_SEED, generate_scenario
 from curation.demo.pipeline import run_demo
 
@@ -33,7 +33,7 @@ def demo_command(
     report = run_demo(folder, samples=samples, store=store)
     print_frame("Demo steps", pd.DataFrame([s.model_dump() for s in report.steps]))
     console.print(f"Demo store {report.store} (samples in {report.samples}):")
-    print_counts(report.summary.model_dump())
+    print_store_summary(report.summary)
 
 
 @app.command("generate-scenario")

@@ -12,7 +12,7 @@ from rich.table import Table
 
 from curation.cli.app import console
 
-__all__ = ["print_counts", "print_frame", "progress_bar"]
+__all__ = ["print_counts", "print_frame", "print_store_summary", "progress_bar"]
 
 
 def print_frame(title: str, frame: pd.DataFrame, *, limit: int = 50) -> None:
@@ -38,6 +38,22 @@ def print_counts(counts: dict[str, Any]) -> None:
             console.print(f"{key.replace('_', ' ')}: {shown}")
         else:
             console.print(f"{key.replace('_', ' ')}: {value}")
+
+
+def print_store_summary(summary: Any) -> None:
+    """Print a :class:`~curation.store.summary.StoreSummary`: its counts, then
+    what is not settled (stale names, flags and bundles)."""
+    print_counts(summary.model_dump(exclude={"staleness", "bundles"}))
+    stale = summary.stale_lines()
+    if stale:
+        console.print("Not settled:")
+        for line in stale:
+            console.print(f"  - {line}", markup=False)
+    elif summary.staleness:
+        console.print(
+            "Not settled: nothing (every written name has a decision, every measurement "
+            "is flagged, every bundle is up to date)"
+        )
 
 
 @contextmanager

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from curation.cli.app import StoreOption, app, console
-from curation.cli.output import print_counts, print_frame
+from curation.cli.output import print_frame, print_store_summary
 from curation.store import create_store, open_store, upgrade_store
 from curation.store.summary import list_sources, list_traits, list_tree_sets, summarise_store
 
@@ -34,7 +34,9 @@ def upgrade_store_command(store: StoreOption = None) -> None:
 @app.command("show-store")
 def show_store_command(store: StoreOption = None) -> None:
     """Show what the store holds: sources, tree sets, traits and counts of
-    measurements, decisions, findings and ledger events.
+    measurements, decisions, findings and ledger events, and what is not
+    settled: written names without a decision, measurements not yet
+    flagged, bundles older than the events they depend on.
 
     Example: tipledger show-store --store lab.db
     """
@@ -43,4 +45,4 @@ def show_store_command(store: StoreOption = None) -> None:
         print_frame("Sources", list_sources(opened))
         print_frame("Tree sets", list_tree_sets(opened))
         print_frame("Traits", list_traits(opened))
-    print_counts(summary.model_dump())
+    print_store_summary(summary)

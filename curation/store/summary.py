@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import pandas as pd
-from pydantic import BaseModel
+from pydantic import BaseModel, Field
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
@@ -20,6 +20,8 @@ from curation.store.models import (
     Tree,
     TreeSet,
 )
+from curation.store.provenance import BundleAge, bundle_ages
+from curation.store.staleness import Staleness, store_staleness
 
 __all__ = ["StoreSummary", "summarise_store", "list_sources", "list_tree_sets", "list_traits"]
 
@@ -39,6 +41,19 @@ class StoreSummary(BaseModel):
     decisions: dict[str, int]
     findings: dict[str, int]
     ledger_events: int
+    staleness: list[Staleness] = Field(
+        default_factory=list, description="per lineage of tree sets, what is not settled"
+    )
+    bundles: list[BundleAge] = Field(
+        default_factory=list, description="each bundle made, and the later events it misses"
+    )
+
+    def stale_lines(self) -> list[str]:
+        """Say, one line each, what is stale: per lineage the names without
+        a decision and the measurements not yet flagged, and each bundle
+        older than events it depends on."""
+        out = [p for s in self.staleness for p in s.problems()]
+        return out + [b.describe() for b in self.bundles if b.stale]
 
 
 def _count(session: Session, column) -> int:  # type: ignore[no-untyped-def]
@@ -53,7 +68,8 @@ def _grouped(session: Session, column) -> dict[str, int]:  # type: ignore[no-unt
 def summarise_store(store: Store) -> StoreSummary:
     """Return counts of sources (by kind), trees, tips, measurements (by
     status), traits, synonyms, name decisions in force (by status), stored
-    findings (by severity) and ledger events."""
+    findings (by severity) and ledger events, with what is stale
+    (:mod:`curation.store.staleness`) and the age of every bundle made."""
     with store.reading() as session:
         latest = (
             select(func.max(NameDecision.id))
@@ -78,6 +94,8 @@ def summarise_store(store: Store) -> StoreSummary:
             decisions={str(k): int(n) for k, n in decisions},
             findings=_grouped(session, StoredFinding.severity),
             ledger_events=_count(session, LedgerEvent.id),
+            staleness=store_staleness(session),
+            bundles=bundle_ages(session),
         )
 
 
