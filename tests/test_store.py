@@ -113,3 +113,75 @@ def test_json_columns_hold_no_nan_on_any_backend(store: Store) -> None:
         stored = session.scalars(select(StoredFinding)).one()
         assert stored.details == {"z": None, "ids": [1, 2]}
         assert session.get(type(event), event.id).parameters == {"x": None, "n": 3}
+
+
+def test_upgrade_from_schema_0001_respells_the_ledger(store_url: str) -> None:
+    # A store made by the first schema, holding events spelled the old way
+    # (underscores, one action for every trait import), then upgraded.
+    from alembic import command
+    from sqlalchemy import create_engine, text
+
+    from curation.store.engine import _alembic_config
+
+    if store_url.startswith("sqlite"):
+        path = Path(store_url.removeprefix("sqlite:///"))
+        path.unlink()
+        for suffix in ("-wal", "-shm"):
+            Path(f"{path}{suffix}").unlink(missing_ok=True)
+    else:
+        engine = create_engine(store_url)
+        with engine.begin() as connection:
+            names = connection.execute(
+                text("SELECT tablename FROM pg_tables WHERE schemaname = current_schema()")
+            ).scalars()
+            for name in list(names):
+                connection.execute(text(f'DROP TABLE "{name}" CASCADE'))
+        engine.dispose()
+    engine = create_engine(store_url)
+    with engine.begin() as connection:
+        config = _alembic_config(store_url)
+        config.attributes["connection"] = connection
+        command.upgrade(config, "0001")
+        stamp = "2026-12-01 10:00:00+00:00"
+        for number, action in enumerate(
+            ["import_tree", "import_trait", "import_trait", "check_trees", "make_ultrametric"],
+            start=1,
+        ):
+            connection.execute(
+                text(
+                    "INSERT INTO ledger_events (at, who, action, subject, summary, parameters)"
+                    " VALUES (:at, :who, :action, '', '', '{}')"
+                ),
+                {"at": stamp, "who": f"ana {number}", "action": action},
+            )
+        connection.execute(
+            text(
+                "INSERT INTO sources (id, sha256, size_bytes, kind, format, file_name, "
+                "imported_at, label, citation, licence, notes, options, event_id) VALUES "
+                "(1, :sha, 1, 'trait', 'dwca', 'o.zip', :at, '', '', '', '', '{}', 3)"
+            ),
+            {"sha": "b" * 64, "at": stamp},
+        )
+        connection.execute(
+            text(
+                "INSERT INTO tree_sets (id, name, repair, event_id, tree_count) VALUES "
+                "(1, 'derived', 'make_ultrametric', 5, 0)"
+            )
+        )
+    engine.dispose()
+    with pytest.raises(SchemaVersionError, match="upgrade-store"):
+        open_store(store_url)
+    assert upgrade_store(store_url)[0] == "0001"
+    with open_store(store_url) as opened, opened.reading() as session:
+        events = session.scalars(select(LedgerEvent).order_by(LedgerEvent.id)).all()
+        repair = session.scalar(text("SELECT repair FROM tree_sets WHERE id = 1"))
+    assert [e.action for e in events] == [
+        "import-trees",
+        "import-traits",
+        "import-darwin-core",
+        "check-trees",
+        "make-ultrametric",
+        "upgrade-store",
+    ]
+    assert "respelled 6 action and repair names" in events[-1].summary
+    assert repair == "make-ultrametric"
