@@ -12,6 +12,7 @@ rather than stopping at the first.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from dataclasses import field as dataclass_field
 from typing import Any
@@ -26,6 +27,8 @@ __all__ = [
     "NotFoundError",
     "ConflictError",
     "StaleError",
+    "check_choice",
+    "choice_error",
 ]
 
 
@@ -139,3 +142,40 @@ class ConflictError(InputError):
 class StaleError(ConflictError):
     """A stage would build on an earlier stage that is not settled (names
     without a decision, measurements not yet flagged)."""
+
+
+def choice_error(value: object, allowed: Sequence[str], *, field: str, hint: str) -> InputError:
+    """Return the :class:`InputError` for ``value`` that is not one of ``allowed``.
+
+    The message lists every allowed value; ``field`` names what was given
+    (an argument in the library, an option on the command line) and
+    ``hint`` says how to give it.
+    """
+    listing = ", ".join(repr(v) for v in allowed)
+    return InputError(
+        f"{value!r} is not one of the allowed values {listing}", field=field, hint=hint
+    )
+
+
+def check_choice(
+    value: object, allowed: Sequence[str], argument: str, *, hint: str | None = None
+) -> str:
+    """Return ``value`` when it is one of the strings ``allowed``.
+
+    Args:
+        value: what a caller gave.
+        allowed: every value the argument takes.
+        argument: the name of the argument, for the message.
+        hint: how to fix it (default: give ``argument`` one of ``allowed``).
+
+    Raises:
+        InputError: ``value`` is anything else; the message lists ``allowed``.
+    """
+    if isinstance(value, str) and value in allowed:
+        return value
+    raise choice_error(
+        value,
+        allowed,
+        field=argument,
+        hint=hint or f"give {argument} one of them, e.g. {argument}={allowed[0]!r}",
+    )

@@ -782,7 +782,15 @@ BAD_INPUT = [
     ),
     ("negative burn-in", "p.nwk", "(A,B);", {"burn_in": -1}, InputError, "negative", None),
     ("keep every 0", "p.nwk", "(A,B);", {"keep_every": 0}, InputError, "less than 1", None),
-    ("unknown format", "p.nwk", "(A,B);", {"format": "phylip"}, InputError, "unknown", None),
+    (
+        "unknown format",
+        "p.nwk",
+        "(A,B);",
+        {"format": "phylip"},
+        InputError,
+        "not one of the allowed values",
+        None,
+    ),
 ]
 
 

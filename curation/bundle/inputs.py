@@ -9,14 +9,14 @@ options.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Any, Literal, get_args
 
 import numpy as np
 import pandas as pd
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator, model_validator
 from sqlalchemy import select
 
-from curation.errors import InputError, StaleError
+from curation.errors import InputError, StaleError, check_choice
 from curation.store.decisions import current_decisions
 from curation.store.engine import Store
 from curation.store.lineage import Lineage, get_tree_set, lineage_of
@@ -33,6 +33,7 @@ from curation.store.staleness import (
     stale_measurement_ids,
     undecided_names,
 )
+from curation.traits.species import SourcePolicy
 from curation.trees.arrays import TreeArrays
 from curation.trees.stored import load_tree, load_tree_set
 
@@ -40,6 +41,7 @@ __all__ = [
     "MEASUREMENT_FIELDS",
     "BundleInputs",
     "BundleOptions",
+    "MissingTips",
     "gather_bundle_inputs",
 ]
 
@@ -70,6 +72,10 @@ MEASUREMENT_FIELDS = (
 )
 
 
+#: What a bundle does with tips that have no trait data.
+MissingTips = Literal["prune", "keep"]
+
+
 class BundleOptions(BaseModel):
     """The choices that shape a bundle (all recorded in its provenance)."""
 
@@ -78,10 +84,10 @@ class BundleOptions(BaseModel):
     tree_id: int | None = Field(None, description="one stored tree")
     tree_set_id: int | None = Field(None, description="a stored tree set (NEXUS output)")
     traits: list[str] | None = Field(None, description="traits to include (default: all)")
-    missing: Literal["prune", "keep"] = Field(
+    missing: MissingTips = Field(
         "prune", description="prune tips without data, or keep them with missing values"
     )
-    policy: Literal["pool", "priority", "weighted"] = Field(
+    policy: SourcePolicy = Field(
         "pool", description="how measurements of several sources make one species value"
     )
     include_matrix: bool = Field(False, description="write the variance-covariance matrix")
@@ -97,6 +103,13 @@ class BundleOptions(BaseModel):
         description="make the bundle even when written names have no decision yet or "
         "measurements are not yet flagged, listing them in the accounting",
     )
+
+    @field_validator("missing", "policy", mode="before")
+    @classmethod
+    def _one_of_the_values(cls, value: object, info: ValidationInfo) -> object:
+        # Our own error, listing the values, instead of pydantic's.
+        allowed = get_args(cls.model_fields[info.field_name].annotation)
+        return check_choice(value, allowed, info.field_name)
 
     @model_validator(mode="after")
     def _one_tree_choice(self) -> BundleOptions:

@@ -3,16 +3,20 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Literal
 
 import typer
 
 from curation.cli.app import StoreOption, UserOption, app, console
 from curation.cli.output import progress_bar
 from curation.store import open_store
+from curation.traits.species import SourcePolicy
 
 # The bundle stage (with pyarrow and the report) is imported when a bundle
-# command runs, so that every other command starts faster.
+# command runs, so that every other command starts faster; so the values of
+# BundleOptions.missing are spelled here too (tests/test_cli.py checks that
+# they agree).
+MissingTips = Literal["prune", "keep"]
 
 
 @app.command("make-bundle")
@@ -29,10 +33,15 @@ def make_bundle_command(
         typer.Option("--trait", help="A trait to include; repeat it (default: all)."),
     ] = None,
     missing: Annotated[
-        str, typer.Option(help="prune: drop tips without data; keep: keep them with empty values.")
+        MissingTips,
+        typer.Option(help="prune: drop tips without data; keep: keep them with empty values."),
     ] = "prune",
     policy: Annotated[
-        str, typer.Option(help="Species values from several sources: pool, priority or weighted.")
+        SourcePolicy,
+        typer.Option(
+            help="How measurements of several sources make one species value: pool them, "
+            "take the preferred source (priority), or weight each source's mean by its n."
+        ),
     ] = "pool",
     matrix: Annotated[
         bool, typer.Option("--matrix", help="Also write the covariance matrix.")
@@ -73,8 +82,8 @@ def make_bundle_command(
         tree_id=tree,
         tree_set_id=tree_set,
         traits=trait or None,
-        missing=missing,  # type: ignore[arg-type]
-        policy=policy,  # type: ignore[arg-type]
+        missing=missing,
+        policy=policy,
         include_matrix=matrix,
         matrix_limit_bytes=int(matrix_limit * 1e9),
         make_zip=make_zip,

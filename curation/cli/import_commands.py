@@ -19,7 +19,7 @@ from curation.cli.app import (
 )
 from curation.cli.output import progress_bar
 from curation.imports.common import SourceInfo
-from curation.imports.trees import import_trees
+from curation.imports.trees import TreeFormat, import_trees
 from curation.store import open_store
 
 
@@ -27,9 +27,11 @@ from curation.store import open_store
 def import_trees_command(
     path: Annotated[Path, typer.Argument(help="Newick, NEXUS or NeXML file of one or more trees.")],
     format: Annotated[
-        str | None,
+        TreeFormat | None,
         typer.Option(
-            "--format", help="newick, nexus or nexml (default: guessed from the file's content)."
+            "--format",
+            case_sensitive=False,
+            help="The file's format (default: told from its content, then its name).",
         ),
     ] = None,
     burn_in: Annotated[

@@ -21,6 +21,7 @@ from curation.traits import (
     include_measurements,
     species_values,
 )
+from curation.traits.species import SourcePolicy
 
 TreeSetOption = Annotated[
     int, typer.Option("--tree-set", help="Id of the tree set (see show-store).")
@@ -108,7 +109,13 @@ def include_measurement_command(
 def show_species_values_command(
     tree_set: TreeSetOption,
     trait: Annotated[list[str] | None, typer.Option("--trait", help="Only this trait.")] = None,
-    policy: Annotated[str, typer.Option(help="Sources: pool, priority or weighted.")] = "pool",
+    policy: Annotated[
+        SourcePolicy,
+        typer.Option(
+            help="How measurements of several sources make one value: pool them, take the "
+            "preferred source (priority), or weight each source's mean by its n."
+        ),
+    ] = "pool",
     by_sex: Annotated[bool, typer.Option("--by-sex", help="One value per sex.")] = False,
     output: Annotated[Path | None, typer.Option(help="Also write the values to this CSV.")] = None,
     store: StoreOption = None,

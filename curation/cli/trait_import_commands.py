@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Annotated
 
@@ -18,11 +19,12 @@ from curation.cli.app import (
     console,
 )
 from curation.cli.output import print_counts, progress_bar
-from curation.errors import InputError
+from curation.errors import InputError, choice_error
 from curation.imports.common import ImportResult, SourceInfo
 from curation.imports.dwca import import_darwin_core
-from curation.imports.synonyms import import_synonyms
-from curation.imports.traits import ROLES, import_traits
+from curation.imports.measurements import DecimalMark
+from curation.imports.synonyms import PAIR_ROLES, SynonymLayout, import_synonyms
+from curation.imports.traits import ROLES, TraitLayout, import_traits
 from curation.store import open_store
 
 __all__ = ["parse_pairs"]
@@ -37,7 +39,7 @@ PriorityOption = Annotated[
     ),
 ]
 DecimalOption = Annotated[
-    str, typer.Option("--decimal", help="The decimal mark of the values: '.' or ','.")
+    DecimalMark, typer.Option("--decimal", help="The decimal mark of the values.")
 ]
 DelimiterOption = Annotated[
     str | None,
@@ -53,11 +55,18 @@ SheetOption = Annotated[
 ]
 
 
-def parse_pairs(values: list[str] | None, option: str) -> dict[str, str]:
+def parse_pairs(
+    values: list[str] | None, option: str, keys: Sequence[str] | None = None
+) -> dict[str, str]:
     """Turn repeated ``KEY=VALUE`` option values into a dict.
 
+    Args:
+        values: the option's values as given.
+        option: the option's name, for messages.
+        keys: the keys allowed (any key when None).
+
     Raises:
-        InputError: a value has no ``=``.
+        InputError: a value has no ``=``, or its key is not one of ``keys``.
     """
     result: dict[str, str] = {}
     for value in values or []:
@@ -67,6 +76,13 @@ def parse_pairs(values: list[str] | None, option: str) -> dict[str, str]:
                 f"{option} {value!r} is not KEY=VALUE",
                 field=option,
                 hint=f"write it as {option} name=value, e.g. {option} taxon='Species name'",
+            )
+        if keys is not None and key.strip() not in keys:
+            raise choice_error(
+                key.strip(),
+                keys,
+                field=option,
+                hint=f"the part before '=' is a role, e.g. {option} {keys[0]}=COLUMN",
             )
         result[key.strip()] = rest.strip()
     return result
@@ -90,7 +106,7 @@ def _info(label: str, citation: str, licence: str, notes: str) -> SourceInfo:
 def import_traits_command(
     path: FileArgument,
     layout: Annotated[
-        str,
+        TraitLayout,
         typer.Option(
             "--layout", help="wide: a column per trait; long: taxon, trait, value (unit) columns."
         ),
@@ -137,19 +153,21 @@ def import_traits_command(
 
     Example: tipledger import-traits museum.csv --decimal ,
     """
+    columns = parse_pairs(column, "--columns", ROLES)
+    units = parse_pairs(unit, "--unit")
     with open_store(store) as opened, progress_bar("Storing measurements") as progress:
         result = import_traits(
             opened,
             path,
             layout=layout,
-            columns=parse_pairs(column, "--columns"),
+            columns=columns,
             traits=trait or None,
             delimiter=delimiter,
             encoding=encoding,
             decimal=decimal,
             sheet=sheet,
             default_unit=default_unit,
-            units=parse_pairs(unit, "--unit"),
+            units=units,
             priority=priority,
             info=_info(label, citation, licence, notes),
             who=user,
@@ -192,7 +210,7 @@ def import_darwin_core_command(
 def import_synonyms_command(
     path: FileArgument,
     layout: Annotated[
-        str | None,
+        SynonymLayout | None,
         typer.Option(
             "--layout",
             help="pairs: synonym and accepted-name columns; checklist: Darwin Core Taxon "
@@ -201,7 +219,10 @@ def import_synonyms_command(
     ] = None,
     column: Annotated[
         list[str] | None,
-        typer.Option("--columns", help="ROLE=COLUMN for pairs (roles: synonym, accepted, status)."),
+        typer.Option(
+            "--columns",
+            help="ROLE=COLUMN for pairs; repeat it. Roles: " + ", ".join(PAIR_ROLES) + ".",
+        ),
     ] = None,
     delimiter: DelimiterOption = None,
     encoding: EncodingOption = None,
@@ -218,12 +239,13 @@ def import_synonyms_command(
 
     Example: tipledger import-synonyms synonyms.csv --columns accepted=current
     """
+    columns = parse_pairs(column, "--columns", PAIR_ROLES)
     with open_store(store) as opened, progress_bar("Storing synonyms") as progress:
         result = import_synonyms(
             opened,
             path,
             layout=layout,
-            columns=parse_pairs(column, "--columns"),
+            columns=columns,
             delimiter=delimiter,
             encoding=encoding,
             sheet=sheet,

@@ -14,6 +14,7 @@ from curation.store import open_store
 from curation.store.models import TreeSet
 from curation.trees.checks import DEFAULT_OUTLIER_THRESHOLD, DEFAULT_TOLERANCE, tree_findings
 from curation.trees.checks import check_trees as check_trees_in_store
+from curation.trees.edits import UltrametricMethod
 from curation.trees.matrix import DEFAULT_MEMORY_LIMIT_BYTES
 from curation.trees.repairs import (
     collapse_short_branches,
@@ -172,7 +173,13 @@ def collapse_short_branches_command(
 @app.command("make-ultrametric")
 def make_ultrametric_command(
     tree_set: TreeSetArgument = None,
-    method: Annotated[str, typer.Option(help="extend or least_squares.")] = "extend",
+    method: Annotated[
+        UltrametricMethod,
+        typer.Option(
+            help="extend: lengthen terminal branches to the deepest tip; least_squares: "
+            "fit node ages that change branch lengths least."
+        ),
+    ] = "extend",
     tolerance: ToleranceOption = DEFAULT_TOLERANCE,
     force: Annotated[
         bool, typer.Option("--force", help="Also change trees whose deviation is substantive.")

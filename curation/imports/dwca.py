@@ -28,6 +28,7 @@ from curation.formats.darwin_core import (
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
 from curation.imports.measurements import (
     MEASUREMENT_COLUMNS,
+    DecimalMark,
     check_decimal,
     mark_discrete,
     parse_values,
@@ -220,7 +221,7 @@ def import_darwin_core(
     store: Store,
     path: str | os.PathLike[str],
     *,
-    decimal: str = ".",
+    decimal: DecimalMark = ".",
     priority: int = 100,
     info: SourceInfo | None = None,
     who: str | None = None,
@@ -241,12 +242,15 @@ def import_darwin_core(
         ``taxa``.
 
     Raises:
+        InputError: ``decimal`` is neither ``.`` nor ``,`` (checked before
+            the file is read).
         NotFoundError: no such file.
         FormatError: the file is not a Darwin Core Archive (no zip, no
             meta.xml, no core), its core is not Occurrence/Taxon, it has no
             MeasurementOrFact extension, or its rows do not link up.
         ConflictError: the same file (sha256) is already stored.
     """
+    check_decimal(decimal)
     data = read_source_bytes(path)
     with store.transaction() as session:
         # Registering first refuses a file already stored before any parsing.

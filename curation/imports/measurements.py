@@ -10,12 +10,14 @@ help); an empty cell or a missing-value mark is status ``missing``.
 
 from __future__ import annotations
 
+from typing import Literal, get_args
+
 import numpy as np
 import pandas as pd
 from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
-from curation.errors import InputError
+from curation.errors import check_choice
 from curation.progress import Progress
 from curation.store.models import Measurement
 
@@ -26,9 +28,15 @@ __all__ = [
     "mark_discrete",
     "store_measurements",
     "check_decimal",
+    "DECIMAL_MARKS",
+    "DecimalMark",
     "insert_rows",
 ]
 
+
+#: The decimal marks written values may use.
+DecimalMark = Literal[".", ","]
+DECIMAL_MARKS: tuple[str, ...] = get_args(DecimalMark)
 
 #: Written marks read as "no value" (case-insensitive; common practice of
 #: spreadsheets and R/pandas exports).
@@ -56,18 +64,12 @@ _COMMA_NUMBER = r"[+-]?(?:\d{1,3}(?:\.\d{3})+|\d+)?(?:,\d+)?(?:[eE][+-]?\d+)?"
 
 
 def check_decimal(decimal: str) -> str:
-    """Return ``decimal`` if it is ``.`` or ``,``.
+    """Return ``decimal`` if it is ``.`` or ``,`` (:data:`DECIMAL_MARKS`).
 
     Raises:
         InputError: any other mark.
     """
-    if decimal not in (".", ","):
-        raise InputError(
-            f"the decimal mark {decimal!r} is not one tipledger reads",
-            field="decimal",
-            hint="give --decimal '.' (the default) or --decimal ','",
-        )
-    return decimal
+    return check_choice(decimal, DECIMAL_MARKS, "decimal")
 
 
 def parse_values(written: pd.Series, *, decimal: str = ".") -> pd.DataFrame:

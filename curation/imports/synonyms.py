@@ -16,11 +16,12 @@ import io
 import os
 import zipfile
 from pathlib import Path
+from typing import Literal, get_args
 
 import pandas as pd
 from sqlalchemy import insert
 
-from curation.errors import FormatError, InputError, Problem
+from curation.errors import FormatError, InputError, Problem, check_choice
 from curation.formats.darwin_core import TAXON, read_archive
 from curation.formats.tables import read_table
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
@@ -30,11 +31,19 @@ from curation.store.models import Synonym
 
 __all__ = [
     "CHECKLIST_TERMS",
+    "PAIR_ROLES",
+    "SYNONYM_LAYOUTS",
     "SYNONYM_STATUSES",
+    "SynonymLayout",
     "import_synonyms",
     "synonyms_from_checklist",
     "synonyms_from_pairs",
 ]
+
+#: How a synonym file is laid out: (synonym, accepted name) pairs, or a
+#: Darwin Core Taxon checklist.
+SynonymLayout = Literal["pairs", "checklist"]
+SYNONYM_LAYOUTS: tuple[str, ...] = get_args(SynonymLayout)
 
 #: taxonomicStatus values read as synonyms, compared lower-case without
 #: blanks, hyphens or underscores. The words are those of the GBIF
@@ -65,7 +74,8 @@ CHECKLIST_TERMS = (
 )
 _SYNONYM_ALIASES = ("synonym", "synonymname", "oldname", "writtenname", "name")
 _ACCEPTED_ALIASES = ("accepted", "acceptedname", "validname", "currentname", "acceptedname")
-_ROLES = ("synonym", "accepted", "status")
+#: The column roles of a table of pairs.
+PAIR_ROLES = ("synonym", "accepted", "status")
 
 
 def _key(name: str) -> str:
@@ -102,9 +112,9 @@ def synonyms_from_pairs(
     given = dict(columns or {})
     problems: list[Problem] = []
     for role, column in given.items():
-        if role not in _ROLES:
+        if role not in PAIR_ROLES:
             problems.append(
-                Problem(f"{role!r} is not a column role", hint="roles are " + ", ".join(_ROLES))
+                Problem(f"{role!r} is not a column role", hint="roles are " + ", ".join(PAIR_ROLES))
             )
         elif column not in present:
             problems.append(
@@ -115,7 +125,7 @@ def synonyms_from_pairs(
                     hint="columns present: " + ", ".join(repr(c) for c in present),
                 )
             )
-    roles = {r: c for r, c in given.items() if r in _ROLES and c in present}
+    roles = {r: c for r, c in given.items() if r in PAIR_ROLES and c in present}
     by_key = {_key(c): c for c in reversed(present)}
     for role, aliases in (("synonym", _SYNONYM_ALIASES), ("accepted", _ACCEPTED_ALIASES)):
         if role not in roles:
@@ -310,7 +320,7 @@ def import_synonyms(
     store: Store,
     path: str | os.PathLike[str],
     *,
-    layout: str | None = None,
+    layout: SynonymLayout | None = None,
     columns: dict[str, str] | None = None,
     delimiter: str | None = None,
     encoding: str | None = None,
@@ -340,16 +350,18 @@ def import_synonyms(
 
     Raises:
         NotFoundError: no such file or worksheet.
-        InputError: columns or terms are missing, or rows are incomplete
+        InputError: ``layout`` is not one of its values (checked before the
+            file is read); columns or terms are missing, or rows are incomplete
             (every problem listed).
         FormatError: the file cannot be read (encoding, zip, meta.xml).
         ConflictError: the same file (sha256) is already stored.
     """
-    if layout not in (None, "pairs", "checklist"):
-        raise InputError(
-            f"the layout {layout!r} is not one tipledger reads for synonyms",
-            field="layout",
-            hint="give --layout pairs or --layout checklist, or leave it out to guess",
+    if layout is not None:
+        check_choice(
+            layout,
+            SYNONYM_LAYOUTS,
+            "layout",
+            hint="give layout one of them, or None to tell from the file",
         )
     data = read_source_bytes(path)
     with store.transaction() as session:

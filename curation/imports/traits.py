@@ -19,16 +19,18 @@ from __future__ import annotations
 import os
 import re
 from pathlib import Path
+from typing import Literal, get_args
 
 import numpy as np
 import pandas as pd
 from sqlalchemy import select
 
-from curation.errors import InputError, Problem
+from curation.errors import InputError, Problem, check_choice
 from curation.formats.tables import Table, read_table
 from curation.imports.common import ImportResult, SourceInfo, read_source_bytes, register_source
 from curation.imports.measurements import (
     MEASUREMENT_COLUMNS,
+    DecimalMark,
     check_decimal,
     mark_discrete,
     parse_values,
@@ -41,6 +43,7 @@ from curation.store.models import TraitDefinition, TraitSource
 __all__ = [
     "ROLES",
     "LAYOUTS",
+    "TraitLayout",
     "import_traits",
     "measurements_from_table",
     "resolve_columns",
@@ -49,7 +52,10 @@ __all__ = [
 
 #: What a column can hold, for ``columns=``.
 ROLES = ("taxon", "specimen", "institution", "sex", "life_stage", "trait", "value", "unit")
-LAYOUTS = ("wide", "long")
+#: How a trait table is laid out: a column per trait, or taxon, trait and
+#: value columns.
+TraitLayout = Literal["wide", "long"]
+LAYOUTS: tuple[str, ...] = get_args(TraitLayout)
 
 _REQUIRED = {"wide": ("taxon",), "long": ("taxon", "trait", "value")}
 _LONG_ONLY = ("trait", "value", "unit")
@@ -148,13 +154,7 @@ def resolve_columns(
             fixes it), a given column is not in the file, or a role is
             unknown or does not fit the layout.
     """
-    if layout not in LAYOUTS:
-        raise InputError(
-            f"the layout {layout!r} is not one tipledger reads",
-            field="layout",
-            hint="give --layout wide (a column per trait) or --layout long "
-            "(trait and value columns)",
-        )
+    check_choice(layout, LAYOUTS, "layout")
     problems: list[Problem] = []
     given = dict(columns or {})
     for role, column in given.items():
@@ -469,12 +469,12 @@ def import_traits(
     store: Store,
     path: str | os.PathLike[str],
     *,
-    layout: str = "wide",
+    layout: TraitLayout = "wide",
     columns: dict[str, str] | None = None,
     traits: list[str] | None = None,
     delimiter: str | None = None,
     encoding: str | None = None,
-    decimal: str = ".",
+    decimal: DecimalMark = ".",
     sheet: str | None = None,
     default_unit: str | None = None,
     units: dict[str, str] | None = None,
@@ -509,13 +509,16 @@ def import_traits(
         ``ok``, ``unparsed``, ``missing``, ``traits`` and ``taxa``.
 
     Raises:
+        InputError: ``layout`` or ``decimal`` is not one of its values
+            (checked before the file is read); the file is empty or its
+            columns do not fit (every problem listed).
         NotFoundError: no such file, or no such worksheet.
-        InputError: the file is empty or its columns do not fit (every
-            problem listed).
         FormatError: the bytes are not text in the encoding, or rows do not
             split into columns.
         ConflictError: the same file (sha256) is already stored.
     """
+    check_choice(layout, LAYOUTS, "layout")
+    check_decimal(decimal)
     data = read_source_bytes(path)
     with store.transaction() as session:
         # Registering first refuses a file already stored before any parsing;

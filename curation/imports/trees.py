@@ -23,10 +23,11 @@ import io
 import os
 from dataclasses import replace
 from pathlib import Path
+from typing import Literal, get_args
 
 from pydantic import BaseModel, ConfigDict
 
-from curation.errors import FormatError, InputError, Problem
+from curation.errors import FormatError, InputError, Problem, choice_error
 from curation.formats.newick import relabel_tips, split_newick
 from curation.formats.nexus import NexusTree, read_nexus, rooting_of_comments
 from curation.formats.text import decode_text, locate, shift_error
@@ -39,6 +40,7 @@ from curation.trees.stored import add_tree
 
 __all__ = [
     "TREE_FORMATS",
+    "TreeFormat",
     "ReadTree",
     "TreeFileContents",
     "TreeImportResult",
@@ -47,7 +49,9 @@ __all__ = [
     "read_tree_file",
 ]
 
-TREE_FORMATS = ("newick", "nexus", "nexml")
+#: The tree file formats tipledger reads.
+TreeFormat = Literal["newick", "nexus", "nexml"]
+TREE_FORMATS: tuple[str, ...] = get_args(TreeFormat)
 
 
 # File name endings that say the format when the content does not.
@@ -434,6 +438,25 @@ def _warnings(trees: list[ReadTree]) -> list[str]:
     return notes
 
 
+def _check_format(format: str | None) -> str | None:
+    """Return ``format`` in lower case, or None to guess it.
+
+    Raises:
+        InputError: it is not one of :data:`TREE_FORMATS`.
+    """
+    if format is None:
+        return None
+    lowered = format.lower() if isinstance(format, str) else format
+    if lowered not in TREE_FORMATS:
+        raise choice_error(
+            format,
+            TREE_FORMATS,
+            field="format",
+            hint="give format one of them (in any case), or None to tell it from the file",
+        )
+    return lowered
+
+
 def read_tree_file(
     path: str | os.PathLike[str],
     *,
@@ -460,26 +483,22 @@ def read_tree_file(
         TRANSLATE table replaced by taxon names; comments kept).
 
     Raises:
-        InputError: ``burn_in`` < 0 or not less than the number of trees,
-            ``keep_every`` < 1, an empty file.
+        InputError: ``format`` is not one of :data:`TREE_FORMATS` (in any
+            case; checked before the file is read), ``burn_in`` < 0 or not
+            less than the number of trees, ``keep_every`` < 1, an empty file.
         FormatError: the file is not UTF-8 (the message says which encoding
             it looks like), not the format given, or malformed; every
             problem found is listed with its line and column.
         NotFoundError: no such file.
     """
+    given = _check_format(format)
     _check_thinning(burn_in, keep_every)
     file = str(path)
     if data is None:
         data = read_source_bytes(path)
     elif not data.strip():
         read_source_bytes(path)  # the same message for an empty file
-    chosen = (format or guess_tree_format(path, data)).lower()
-    if chosen not in TREE_FORMATS:
-        raise InputError(
-            f"unknown tree format {format!r}",
-            field="format",
-            hint="give --format newick, --format nexus or --format nexml",
-        )
+    chosen = given or guess_tree_format(path, data)
     if chosen == "nexml":
         total, trees = _read_nexml(data, file, burn_in, keep_every, progress)
     else:
@@ -538,6 +557,7 @@ def import_trees(
         ConflictError: the same file (by sha256) is already stored; nothing
             is stored.
     """
+    _check_format(format)
     data = read_source_bytes(path)
     half: Progress | None = None
     if progress is not None:

@@ -20,17 +20,21 @@ and says so in ``note``. Every row lists the measurement ids it came from.
 
 from __future__ import annotations
 
+from typing import Literal, get_args
+
 import numpy as np
 import pandas as pd
 
-from curation.errors import InputError
+from curation.errors import InputError, check_choice
 from curation.store.engine import Store
 from curation.traits.faults import FaultOptions
 from curation.traits.frame import measurements_frame
 
-__all__ = ["POLICIES", "SPECIES_COLUMNS", "aggregate_species", "species_values"]
+__all__ = ["POLICIES", "SPECIES_COLUMNS", "SourcePolicy", "aggregate_species", "species_values"]
 
-POLICIES = ("pool", "priority", "weighted")
+#: How measurements of several sources make one species value.
+SourcePolicy = Literal["pool", "priority", "weighted"]
+POLICIES: tuple[str, ...] = get_args(SourcePolicy)
 SPECIES_COLUMNS = [
     "tip_label",
     "trait",
@@ -167,7 +171,7 @@ def aggregate_species(
     frame: pd.DataFrame,
     *,
     traits: list[str] | None = None,
-    policy: str = "pool",
+    policy: SourcePolicy = "pool",
     by_sex: bool = False,
 ) -> pd.DataFrame:
     """Aggregate a prepared measurements frame (see
@@ -181,12 +185,7 @@ def aggregate_species(
         InputError: an unknown policy, or a trait asked for that has no
             measurements.
     """
-    if policy not in POLICIES:
-        raise InputError(
-            f"unknown source policy {policy!r}",
-            field="policy",
-            hint=f"use one of {', '.join(POLICIES)} (--policy)",
-        )
+    check_choice(policy, POLICIES, "policy")
     if traits is not None:
         missing = sorted(set(traits) - set(frame["trait"]))
         if missing:
@@ -222,7 +221,7 @@ def species_values(
     tree_set_id: int,
     *,
     traits: list[str] | None = None,
-    policy: str = "pool",
+    policy: SourcePolicy = "pool",
     by_sex: bool = False,
     options: FaultOptions | None = None,
 ) -> pd.DataFrame:
@@ -237,7 +236,8 @@ def species_values(
 
     Raises:
         NotFoundError: no such tree set.
-        InputError: an unknown policy or trait.
+        InputError: an unknown policy (before the store is read) or trait.
     """
+    check_choice(policy, POLICIES, "policy")
     frame = measurements_frame(store, tree_set_id, options=options)
     return aggregate_species(frame, traits=traits, policy=policy, by_sex=by_sex)

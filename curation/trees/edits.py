@@ -12,14 +12,18 @@ branches it replaces, so distances between the remaining nodes do not change.
 
 from __future__ import annotations
 
+from typing import Literal, get_args
+
 import numpy as np
 
-from curation.errors import ConflictError, InputError, Problem
+from curation.errors import ConflictError, InputError, Problem, check_choice
 from curation.trees.arrays import TreeArrays, path_sums
 from curation.trees.checks import DEFAULT_TOLERANCE, measure_ultrametricity
 from curation.trees.nodes import name_nodes
 
 __all__ = [
+    "ULTRAMETRIC_METHODS",
+    "UltrametricMethod",
     "children_sorted",
     "made_ultrametric",
     "polytomies_resolved",
@@ -27,6 +31,10 @@ __all__ = [
     "short_branches_collapsed",
     "zero_tips_lengthened",
 ]
+
+#: How :func:`made_ultrametric` makes a tree ultrametric.
+UltrametricMethod = Literal["extend", "least_squares"]
+ULTRAMETRIC_METHODS: tuple[str, ...] = get_args(UltrametricMethod)
 
 
 def _contract(tree: TreeArrays, remove: np.ndarray) -> TreeArrays:
@@ -268,7 +276,7 @@ def short_branches_collapsed(tree: TreeArrays, threshold: float) -> TreeArrays:
 def made_ultrametric(
     tree: TreeArrays,
     *,
-    method: str = "extend",
+    method: UltrametricMethod = "extend",
     tolerance: float = DEFAULT_TOLERANCE,
     force: bool = False,
 ) -> TreeArrays:
@@ -290,12 +298,7 @@ def made_ultrametric(
         InputError: an unknown method, a negative tolerance, or missing
             branch lengths.
     """
-    if method not in ("extend", "least_squares"):
-        raise InputError(
-            f"unknown method {method!r}",
-            field="method",
-            hint="use --method extend or --method least_squares",
-        )
+    check_choice(method, ULTRAMETRIC_METHODS, "method")
     if not np.isfinite(tolerance) or tolerance < 0:
         raise InputError(
             f"the tolerance {tolerance!r} is not a number >= 0",

@@ -14,13 +14,15 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
-from curation.errors import InputError, TipledgerError
+from curation.errors import InputError, TipledgerError, check_choice
 from curation.store.engine import Store
 from curation.store.ledger import record_event
 from curation.store.models import TreeSet
 from curation.trees.arrays import TreeArrays, to_newick
 from curation.trees.checks import DEFAULT_TOLERANCE
 from curation.trees.edits import (
+    ULTRAMETRIC_METHODS,
+    UltrametricMethod,
     children_sorted,
     made_ultrametric,
     polytomies_resolved,
@@ -252,7 +254,7 @@ def make_ultrametric(
     tree_set_id: int | None = None,
     *,
     tree_id: int | None = None,
-    method: str = "extend",
+    method: UltrametricMethod = "extend",
     tolerance: float = DEFAULT_TOLERANCE,
     force: bool = False,
     who: str | None = None,
@@ -270,12 +272,7 @@ def make_ultrametric(
         ConflictError: a substantive deviation without ``force`` (nothing stored).
         InputError: an unknown method or a negative tolerance.
     """
-    _require(
-        method in ("extend", "least_squares"),
-        f"unknown method {method!r}",
-        "method",
-        "use --method extend or --method least_squares",
-    )
+    check_choice(method, ULTRAMETRIC_METHODS, "method")
     _require(
         _finite(tolerance, 0.0),
         f"the tolerance {tolerance!r} is not a number >= 0",
