@@ -3,6 +3,8 @@ revising them, review sheets and terminal review, on every backend."""
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
 import pandas as pd
@@ -290,4 +292,76 @@ def test_a_stale_sheet_is_refused(store: Store, tree_set: int, tmp_path: Path) -
     before = _counts(store)
     with pytest.raises(InputError, match="'Ius jos' is not pending"):
         import_review_sheet(store, tree_set, path)
+    assert _counts(store) == before
+
+
+def _run_cli(*args: str) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m curation`` as a user would, in a real process."""
+    return subprocess.run(
+        [sys.executable, "-m", "curation", *args], capture_output=True, text=True, check=False
+    )
+
+
+# Five tips of one genus: a written "Vorsella sp." reaches all five at the
+# genus stage, so its pending decision keeps five candidates.
+FIVE_OF_A_GENUS = (
+    "(Vorsella_alba:1,Vorsella_brevis:1,Vorsella_cana:1,Vorsella_dura:1,Vorsella_erecta:1);"
+)
+
+
+def test_a_sheet_refuses_a_candidate_it_does_not_show(
+    store: Store, store_url: str, tmp_path: Path
+) -> None:
+    tree_set = seed_store(store, FIVE_OF_A_GENUS, ["Vorsella sp."])
+    base = ["--tree-set", str(tree_set), "--store", store_url]
+    assert _run_cli("reconcile-names", *base).returncode == 0
+    stored = pending_names(store, tree_set).set_index("written_name")
+    assert len(stored.loc["Vorsella sp.", "candidates"]) == 5  # the store keeps five
+    path = tmp_path / "review.csv"
+    exported = _run_cli("export-review-sheet", *base[:2], str(path), *base[2:])
+    assert exported.returncode == 0, exported.stderr
+    sheet = pd.read_csv(path, dtype=str, keep_default_na=False)
+    shown = [c for c in sheet.columns if c.startswith("candidate_")]
+    assert shown == ["candidate_1", "candidate_2", "candidate_3"]  # the sheet shows three
+    _fill(path, {"Vorsella sp.": ("4", "")})
+    before = _counts(store)
+    refused = _run_cli("import-review-sheet", *base[:2], str(path), *base[2:])
+    assert refused.returncode == 2, refused.stdout + refused.stderr
+    message = refused.stdout + refused.stderr
+    assert "Traceback" not in message
+    # The file, the row (the header is row 1), the column and the valid range.
+    assert f"{path}, row 2, field 'decision'" in message, message
+    assert "'4'" in message and "1 to 3" in message, message
+    assert _counts(store) == before  # nothing applied
+    # A shown candidate is taken as shown.
+    _fill(path, {"Vorsella sp.": ("3", "")})
+    applied = _run_cli("import-review-sheet", *base[:2], str(path), *base[2:])
+    assert applied.returncode == 0, applied.stdout + applied.stderr
+    assert _in_force(store, tree_set).loc["Vorsella sp.", "tip_label"] == sheet.at[0, "candidate_3"]
+
+
+def test_a_sheet_candidate_edited_or_outdated_is_refused(
+    store: Store, tree_set: int, tmp_path: Path
+) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "review.csv"
+    export_review_sheet(store, tree_set, path)
+    sheet = pd.read_csv(path, dtype=str, keep_default_na=False)
+    # 'Cus dus' shows Cus_dus and Cus_dus_2; its first cell now reads a tip
+    # that is in the tree but is not one of the name's candidates.
+    sheet.loc[sheet["written_name"] == "Cus dus", ["candidate_1", "decision"]] = ["Ius_jus", "1"]
+    # No candidate columns at all on a copy: a number has nothing to pick.
+    sheet.to_csv(path, index=False)
+    bare = tmp_path / "bare.csv"
+    sheet[["written_name", "decision", "tip_label"]].to_csv(bare, index=False)
+    before = _counts(store)
+    with pytest.raises(InputError) as caught:
+        import_review_sheet(store, tree_set, path)
+    text = caught.value.describe()
+    assert "row 3, field 'candidate_1'" in text and "'Ius_jus'" in text, text
+    assert "'Cus_dus', 'Cus_dus_2'" in text, text
+    with pytest.raises(InputError) as caught:
+        import_review_sheet(store, tree_set, bare)
+    assert "row 3, field 'decision'" in caught.value.describe()
+    assert "the row shows no candidates" in caught.value.describe()
     assert _counts(store) == before
