@@ -7,6 +7,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import Levenshtein
 import pandas as pd
 import pytest
 from sqlalchemy import func, select
@@ -23,6 +24,7 @@ from curation.names import (
     reconcile_names,
     summarise_names,
 )
+from curation.names.decisions import candidates_of, note_info
 from curation.store import Store, current_decisions
 from curation.store.models import LedgerEvent, NameDecision, Source, StoredFinding, Synonym
 from curation.timestamps import now
@@ -365,3 +367,75 @@ def test_a_sheet_candidate_edited_or_outdated_is_refused(
     assert "row 3, field 'decision'" in caught.value.describe()
     assert "the row shows no candidates" in caught.value.describe()
     assert _counts(store) == before
+
+
+# A written genus one letter from a tip's genus is another genus name: "If
+# the difference between two genus-group names is due to one letter only,
+# the names are not homonyms" (ICZN Art. 56.2; quoted from memory), so
+# such a name may denote another genus, not a misspelling. A synonym table
+# that moves a species to another genus is a recorded fact, not a guess.
+GENERA = "(Corvella_ardens:1,Corvella_mitis:1,Ius_jus:1,Tamnia_fulva:1);"
+GENUS_CHANGES = ["Korvella ardens", "Corvelka mitis", "Oldella fulva", "Ius jus"]
+
+
+def test_a_change_of_genus_waits_for_review_unless_asked(
+    store: Store, store_url: str, tmp_path: Path
+) -> None:
+    tree_set = seed_store(store, GENERA, GENUS_CHANGES, [("Oldella fulva", "Tamnia fulva")])
+    base = ["--tree-set", str(tree_set), "--store", store_url]
+    ran = _run_cli("reconcile-names", *base)
+    assert ran.returncode == 0, ran.stdout + ran.stderr
+    decided = _in_force(store, tree_set)
+    # K for C: one substitution (Levenshtein package); the spelling stage
+    # folds k to c, but the genus written is not the tip's.
+    assert Levenshtein.distance("Korvella", "Corvella") == 1
+    korvella = decided.loc["Korvella ardens"]
+    assert (korvella["status"], korvella["stage"]) == ("pending", "spelling")
+    assert korvella["score"] == 95.0 and pd.isna(korvella["tip_label"])
+    # One substitution in an 8-letter genus, the epithet as in the tip:
+    # score 100 * (1 - 1 / (8 + 5)), the fuzzy stage's documented formula.
+    assert Levenshtein.distance("corvelka", "corvella") == 1
+    corvelka = decided.loc["Corvelka mitis"]
+    assert (corvelka["status"], corvelka["stage"]) == ("pending", "fuzzy")
+    assert corvelka["score"] == pytest.approx(100 * (1 - 1 / 13), abs=0.01)
+    for name, tip in [("Korvella ardens", "Corvella_ardens"), ("Corvelka mitis", "Corvella_mitis")]:
+        assert candidates_of(decided.loc[name, "note"])[0][0] == tip
+        assert "genus differs from the tip's" in note_info(decided.loc[name, "note"])["reason"]
+    # A synonym that moves the species to another genus stays automatic.
+    assert decided.loc["Oldella fulva", ["status", "stage", "tip_label"]].tolist() == [
+        "accepted",
+        "synonym",
+        "Tamnia_fulva",
+    ]
+    assert decided.loc["Ius jus", "status"] == "accepted"
+    # The review shows why each waits.
+    review = subprocess.run(
+        [sys.executable, "-m", "curation", "review-names", *base],
+        input="s\ns\n",
+        capture_output=True,
+        text=True,
+        check=False,
+    )
+    assert review.returncode == 0, review.stdout + review.stderr
+    assert "'Corvelka mitis'  stage fuzzy; genus differs from the tip's" in review.stdout
+    assert "'Korvella ardens'  stage spelling; genus differs from the tip's" in review.stdout
+    # Asked for, they are accepted automatically, and the event says so.
+    again = _run_cli("reconcile-names", *base, "--accept-genus-changes")
+    assert again.returncode == 0, again.stdout + again.stderr
+    decided = _in_force(store, tree_set)
+    assert decided.loc["Korvella ardens", ["status", "tip_label"]].tolist() == [
+        "accepted",
+        "Corvella_ardens",
+    ]
+    assert decided.loc["Corvelka mitis", ["status", "tip_label"]].tolist() == [
+        "accepted",
+        "Corvella_mitis",
+    ]
+    with store.reading() as session:
+        events = session.scalars(
+            select(LedgerEvent)
+            .where(LedgerEvent.action == "reconcile-names")
+            .order_by(LedgerEvent.id)
+        ).all()
+        flags = [e.parameters["options"]["accept_genus_changes"] for e in events]
+    assert flags == [False, True]
