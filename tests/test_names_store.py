@@ -3,8 +3,11 @@ revising them, review sheets and terminal review, on every backend."""
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
+import Levenshtein
 import pandas as pd
 import pytest
 from sqlalchemy import func, select
@@ -21,6 +24,7 @@ from curation.names import (
     reconcile_names,
     summarise_names,
 )
+from curation.names.decisions import candidates_of, note_info
 from curation.store import Store, current_decisions
 from curation.store.models import LedgerEvent, NameDecision, Source, StoredFinding, Synonym
 from curation.timestamps import now
@@ -291,3 +295,147 @@ def test_a_stale_sheet_is_refused(store: Store, tree_set: int, tmp_path: Path) -
     with pytest.raises(InputError, match="'Ius jos' is not pending"):
         import_review_sheet(store, tree_set, path)
     assert _counts(store) == before
+
+
+def _run_cli(*args: str) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m curation`` as a user would, in a real process."""
+    return subprocess.run(
+        [sys.executable, "-m", "curation", *args], capture_output=True, text=True, check=False
+    )
+
+
+# Five tips of one genus: a written "Vorsella sp." reaches all five at the
+# genus stage, so its pending decision keeps five candidates.
+FIVE_OF_A_GENUS = (
+    "(Vorsella_alba:1,Vorsella_brevis:1,Vorsella_cana:1,Vorsella_dura:1,Vorsella_erecta:1);"
+)
+
+
+def test_a_sheet_refuses_a_candidate_it_does_not_show(
+    store: Store, store_url: str, tmp_path: Path
+) -> None:
+    tree_set = seed_store(store, FIVE_OF_A_GENUS, ["Vorsella sp."])
+    base = ["--tree-set", str(tree_set), "--store", store_url]
+    assert _run_cli("reconcile-names", *base).returncode == 0
+    stored = pending_names(store, tree_set).set_index("written_name")
+    assert len(stored.loc["Vorsella sp.", "candidates"]) == 5  # the store keeps five
+    path = tmp_path / "review.csv"
+    exported = _run_cli("export-review-sheet", *base[:2], str(path), *base[2:])
+    assert exported.returncode == 0, exported.stderr
+    sheet = pd.read_csv(path, dtype=str, keep_default_na=False)
+    shown = [c for c in sheet.columns if c.startswith("candidate_")]
+    assert shown == ["candidate_1", "candidate_2", "candidate_3"]  # the sheet shows three
+    _fill(path, {"Vorsella sp.": ("4", "")})
+    before = _counts(store)
+    refused = _run_cli("import-review-sheet", *base[:2], str(path), *base[2:])
+    assert refused.returncode == 2, refused.stdout + refused.stderr
+    message = refused.stdout + refused.stderr
+    assert "Traceback" not in message
+    # The file, the row (the header is row 1), the column and the valid range.
+    assert f"{path}, row 2, field 'decision'" in message, message
+    assert "'4'" in message and "1 to 3" in message, message
+    assert _counts(store) == before  # nothing applied
+    # A shown candidate is taken as shown.
+    _fill(path, {"Vorsella sp.": ("3", "")})
+    applied = _run_cli("import-review-sheet", *base[:2], str(path), *base[2:])
+    assert applied.returncode == 0, applied.stdout + applied.stderr
+    assert _in_force(store, tree_set).loc["Vorsella sp.", "tip_label"] == sheet.at[0, "candidate_3"]
+
+
+def test_a_sheet_candidate_edited_or_outdated_is_refused(
+    store: Store, tree_set: int, tmp_path: Path
+) -> None:
+    reconcile_names(store, tree_set)
+    path = tmp_path / "review.csv"
+    export_review_sheet(store, tree_set, path)
+    sheet = pd.read_csv(path, dtype=str, keep_default_na=False)
+    # 'Cus dus' shows Cus_dus and Cus_dus_2; its first cell now reads a tip
+    # that is in the tree but is not one of the name's candidates.
+    sheet.loc[sheet["written_name"] == "Cus dus", ["candidate_1", "decision"]] = ["Ius_jus", "1"]
+    # No candidate columns at all on a copy: a number has nothing to pick.
+    sheet.to_csv(path, index=False)
+    bare = tmp_path / "bare.csv"
+    sheet[["written_name", "decision", "tip_label"]].to_csv(bare, index=False)
+    before = _counts(store)
+    with pytest.raises(InputError) as caught:
+        import_review_sheet(store, tree_set, path)
+    text = caught.value.describe()
+    assert "row 3, field 'candidate_1'" in text and "'Ius_jus'" in text, text
+    assert "'Cus_dus', 'Cus_dus_2'" in text, text
+    with pytest.raises(InputError) as caught:
+        import_review_sheet(store, tree_set, bare)
+    assert "row 3, field 'decision'" in caught.value.describe()
+    assert "the row shows no candidates" in caught.value.describe()
+    assert _counts(store) == before
+
+
+# A written genus one letter from a tip's genus is another genus name: "If
+# the difference between two genus-group names is due to one letter only,
+# the names are not homonyms" (ICZN Art. 56.2; quoted from memory), so
+# such a name may denote another genus, not a misspelling. A synonym table
+# that moves a species to another genus is a recorded fact, not a guess.
+GENERA = "(Corvella_ardens:1,Corvella_mitis:1,Ius_jus:1,Tamnia_fulva:1);"
+GENUS_CHANGES = ["Korvella ardens", "Corvelka mitis", "Oldella fulva", "Ius jus"]
+
+
+def test_a_change_of_genus_waits_for_review_unless_asked(
+    store: Store, store_url: str, tmp_path: Path
+) -> None:
+    tree_set = seed_store(store, GENERA, GENUS_CHANGES, [("Oldella fulva", "Tamnia fulva")])
+    base = ["--tree-set", str(tree_set), "--store", store_url]
+    ran = _run_cli("reconcile-names", *base)
+    assert ran.returncode == 0, ran.stdout + ran.stderr
+    decided = _in_force(store, tree_set)
+    # K for C: one substitution (Levenshtein package); the spelling stage
+    # folds k to c, but the genus written is not the tip's.
+    assert Levenshtein.distance("Korvella", "Corvella") == 1
+    korvella = decided.loc["Korvella ardens"]
+    assert (korvella["status"], korvella["stage"]) == ("pending", "spelling")
+    assert korvella["score"] == 95.0 and pd.isna(korvella["tip_label"])
+    # One substitution in an 8-letter genus, the epithet as in the tip:
+    # score 100 * (1 - 1 / (8 + 5)), the fuzzy stage's documented formula.
+    assert Levenshtein.distance("corvelka", "corvella") == 1
+    corvelka = decided.loc["Corvelka mitis"]
+    assert (corvelka["status"], corvelka["stage"]) == ("pending", "fuzzy")
+    assert corvelka["score"] == pytest.approx(100 * (1 - 1 / 13), abs=0.01)
+    for name, tip in [("Korvella ardens", "Corvella_ardens"), ("Corvelka mitis", "Corvella_mitis")]:
+        assert candidates_of(decided.loc[name, "note"])[0][0] == tip
+        assert "genus differs from the tip's" in note_info(decided.loc[name, "note"])["reason"]
+    # A synonym that moves the species to another genus stays automatic.
+    assert decided.loc["Oldella fulva", ["status", "stage", "tip_label"]].tolist() == [
+        "accepted",
+        "synonym",
+        "Tamnia_fulva",
+    ]
+    assert decided.loc["Ius jus", "status"] == "accepted"
+    # The review shows why each waits.
+    review = subprocess.run(
+        [sys.executable, "-m", "curation", "review-names", *base],
+        input="s\ns\n",
+        capture_output=True,
+        text=True,
+        check=False,
+    )
+    assert review.returncode == 0, review.stdout + review.stderr
+    assert "'Corvelka mitis'  stage fuzzy; genus differs from the tip's" in review.stdout
+    assert "'Korvella ardens'  stage spelling; genus differs from the tip's" in review.stdout
+    # Asked for, they are accepted automatically, and the event says so.
+    again = _run_cli("reconcile-names", *base, "--accept-genus-changes")
+    assert again.returncode == 0, again.stdout + again.stderr
+    decided = _in_force(store, tree_set)
+    assert decided.loc["Korvella ardens", ["status", "tip_label"]].tolist() == [
+        "accepted",
+        "Corvella_ardens",
+    ]
+    assert decided.loc["Corvelka mitis", ["status", "tip_label"]].tolist() == [
+        "accepted",
+        "Corvella_mitis",
+    ]
+    with store.reading() as session:
+        events = session.scalars(
+            select(LedgerEvent)
+            .where(LedgerEvent.action == "reconcile-names")
+            .order_by(LedgerEvent.id)
+        ).all()
+        flags = [e.parameters["options"]["accept_genus_changes"] for e in events]
+    assert flags == [False, True]

@@ -35,17 +35,30 @@ def reconcile_names_command(
     review_score: Annotated[
         float, typer.Option(help="Lowest score of a candidate shown for review.")
     ] = _DEFAULTS.review_score,
+    accept_genus_changes: Annotated[
+        bool,
+        typer.Option(
+            "--accept-genus-changes",
+            help="Accept automatically a spelling or fuzzy match whose genus is not the "
+            "tip's genus (by default it waits for review).",
+        ),
+    ] = _DEFAULTS.accept_genus_changes,
     store: StoreOption = None,
     user: UserOption = None,
 ) -> None:
     """Match every written name of the measurements to the tips of a tree set,
     in stages (exact, canonical, synonym, gender, spelling, fuzzy, genus), and
-    record the decisions; names decided before are kept.
+    record the decisions; names decided before are kept. A match that changes
+    the genus (Korvella written for a Corvella tip) waits for review unless
+    asked otherwise; a synonym that moves a species to another genus does not.
 
     Example: tipledger reconcile-names --tree-set 1 --store lab.db
     """
     options = MatchOptions(
-        accept_score=accept_score, ambiguity_margin=margin, review_score=review_score
+        accept_score=accept_score,
+        ambiguity_margin=margin,
+        review_score=review_score,
+        accept_genus_changes=accept_genus_changes,
     )
     with open_store(store) as opened:
         report = reconcile_names(opened, tree_set, options=options, who=user)

@@ -28,6 +28,17 @@ Every result carries its score (0-100), the runner-up and the margin to
 it. Only stages 1-6 accept automatically, and only when one tip is clearly
 best; a written name with a qualifier (cf., aff., nr., ?, sp. nov.) or
 words the parser could not place is always left for review.
+
+A change of genus waits for review too: a match found by the gender,
+spelling or fuzzy stage whose written genus is not the tip's genus (after
+the parser's normalising of case and diacritics), such as ``Korvella``
+for ``Corvella``. Genus names that differ by one letter are distinct names
+(ICZN Art. 56.2), so such a match may point to another genus rather than
+to a misspelt one; it is a stronger claim than a misspelt epithet. The
+exact and canonical stages never change the genus, and a synonym that moves
+a species to another genus is a recorded fact of the synonym table, so
+those stay automatic. ``MatchOptions.accept_genus_changes`` accepts genus
+changes automatically under the stage's other rules.
 """
 
 from __future__ import annotations
@@ -45,6 +56,7 @@ from curation.findings import Finding, Severity
 from curation.names.parse import parse_names
 
 __all__ = [
+    "GENUS_CHANGED",
     "MATCH_COLUMNS",
     "STAGES",
     "MatchOptions",
@@ -80,6 +92,10 @@ MATCH_COLUMNS = [
     "candidates",
     "reason",
 ]
+# Stages that never change the genus, or explain a change by a recorded
+# synonym: their matches are not held back as a change of genus.
+GENUS_KEPT_STAGES = ("exact", "canonical", "synonym")
+GENUS_CHANGED = "genus differs from the tip's"
 # Qualifiers that make the identification itself uncertain.
 UNCERTAIN = {"cf.", "aff.", "nr.", "?", "sp. nov.", "indet."}
 
@@ -92,6 +108,8 @@ class MatchOptions(BaseModel):
     ``ambiguity_margin`` points, and both its genus and its epithet are
     within :func:`allowed_edits` of their length. Weaker candidates down to
     ``review_score`` are kept (at most ``candidates`` per name) for review.
+    A gender, spelling or fuzzy match whose written genus is not the tip's
+    waits for review unless ``accept_genus_changes`` is set.
     """
 
     model_config = ConfigDict(frozen=True)
@@ -106,6 +124,10 @@ class MatchOptions(BaseModel):
     max_edits: int = Field(3, ge=0, description="most edits ever allowed in one part")
     review_extra_edits: int = Field(
         1, ge=0, description="edits beyond the limit still shown as candidates for review"
+    )
+    accept_genus_changes: bool = Field(
+        False,
+        description="accept automatically a match whose written genus is not the tip's genus",
     )
 
 
@@ -427,6 +449,9 @@ def match_names(
     placed_all = parsed["leftovers"].map(len).to_numpy() == 0
     hybrid = parsed["hybrid"].to_numpy(dtype=bool)
     open_ = np.ones(n, dtype=bool)
+    # Genera as the parser reads them (capitalised, without diacritics).
+    w_genus = parsed["genus"].fillna("").to_numpy(dtype=object)
+    genus_of_tip = dict(zip(tparsed["tip"], tparsed["genus"].fillna(""), strict=True))
 
     def settle(stage: str, pairs: pd.DataFrame, hold: str = "") -> None:
         """Record the ranked ``pairs`` (w, tip, score[, auto]) of ``stage``
@@ -450,10 +475,20 @@ def match_names(
         clear = ranked["runner_up"].isna() | (ranked["margin"] >= opts.ambiguity_margin)
         tied = ranked["runner_up"].notna() & (ranked["margin"] <= 0)
         good = ranked["score"] >= (opts.accept_score if stage == "fuzzy" else 0)
+        best_tips = ranked["tip_label"].to_numpy(dtype=object)
+        if stage in GENUS_KEPT_STAGES:
+            changed = np.zeros(len(idx), dtype=bool)
+        else:
+            tip_genus = np.array([genus_of_tip.get(t, "") for t in best_tips], dtype=object)
+            changed = np.array(
+                [w.lower() != t.lower() for w, t in zip(w_genus[idx], tip_genus, strict=True)],
+                dtype=bool,
+            )
         accept = (
             clear.to_numpy()
             & auto_ok.to_numpy(dtype=bool)
             & good.to_numpy()
+            & (~changed | opts.accept_genus_changes)
             & ~uncertain[idx]
             & placed_all[idx]
             & (stage != "genus")
@@ -461,6 +496,12 @@ def match_names(
             & (not hold)
         )
         reason = np.full(len(idx), "", dtype=object)
+        # Lowest in precedence: shown when nothing else holds the name back.
+        if not opts.accept_genus_changes:
+            for k in np.flatnonzero(changed).tolist():
+                reason[k] = (
+                    f"{GENUS_CHANGED}: {w_genus[idx[k]]} written, {tip_genus[k]} in {best_tips[k]}"
+                )
         reason[~good.to_numpy()] = "score below the automatic threshold"
         reason[~auto_ok.to_numpy(dtype=bool)] = "more edits than allowed automatically"
         reason[~clear.to_numpy()] = "runner-up too close"

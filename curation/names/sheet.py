@@ -9,14 +9,22 @@ fill, ``decision`` and ``tip_label``:
 - a number ``n``: accept ``candidate_n``;
 - ``reject``: the name matches no tip.
 
+A number or a bare ``accept`` refers to the candidates the row shows: the
+sheet holds only the first few of a name's candidates, and a number past
+them would pick a tip the reviewer never saw, so it is refused with the
+range the row shows. A shown candidate that is no longer among the name's
+candidates in the store (the sheet is older than the last reconciling) is
+refused too.
+
 Importing validates the whole sheet first (missing columns, malformed
-decisions, unknown names and tips, repeated names) and reports every
-problem with its row; only a clean sheet is applied, all of it in one
-transaction with one ledger event.
+decisions, unknown names and tips, repeated names, candidates not shown)
+and reports every problem with its row and column; only a clean sheet is
+applied, all of it in one transaction with one ledger event.
 """
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pandas as pd
@@ -30,6 +38,7 @@ from curation.store.engine import Store
 __all__ = ["SheetResult", "export_review_sheet", "import_review_sheet"]
 
 REQUIRED = ["written_name", "decision", "tip_label"]
+_CANDIDATE_COLUMN = re.compile(r"candidate_([1-9][0-9]*)")
 
 
 class SheetResult(BaseModel):
@@ -74,6 +83,19 @@ def export_review_sheet(
     return SheetResult(path=str(target), rows=len(sheet))
 
 
+def _shown_range(shown: dict[int, str]) -> str:
+    """Say which candidate numbers a row offers: ``a candidate number shown
+    on the row (1 to 3)``, or that it shows none."""
+    if not shown:
+        return "a candidate number (the row shows no candidates)"
+    numbers = sorted(shown)
+    if numbers == list(range(1, len(numbers) + 1)):
+        span = f"1 to {numbers[-1]}" if len(numbers) > 1 else "1"
+    else:
+        span = ", ".join(map(str, numbers))
+    return f"a candidate number shown on the row ({span})"
+
+
 def import_review_sheet(
     store: Store, tree_set_id: int, path: str | Path, *, who: str | None = None
 ) -> SheetResult:
@@ -86,7 +108,10 @@ def import_review_sheet(
     Raises:
         FormatError: the file cannot be read as CSV or lacks a column.
         InputError: listing every problem with its row (rows counted as a
-            spreadsheet shows them: the header is row 1); nothing applied.
+            spreadsheet shows them: the header is row 1) and column, among
+            them a candidate number the row does not show (the message
+            gives the range it shows) and a shown candidate that is no
+            longer one of the name's; nothing applied.
         NotFoundError: no such tree set.
     """
     source = Path(path)
@@ -109,6 +134,11 @@ def import_review_sheet(
             file=str(source),
             hint="keep the header row of the exported sheet as it was",
         )
+    numbered = sorted(
+        (int(found.group(1)), column)
+        for column in sheet.columns
+        if (found := _CANDIDATE_COLUMN.fullmatch(column))
+    )
     pending = pending_names(store, tree_set_id).set_index("written_name")
     problems: list[Problem] = []
     items = []
@@ -149,10 +179,12 @@ def import_review_sheet(
         if decision == "reject":
             items.append({"written_name": name, "status": "rejected", "row": row})
             continue
+        # The candidates this row shows, by number: only these can be chosen.
+        shown = {k: record[column].strip() for k, column in numbered if record[column].strip()}
         tip: str | None = None
+        picked: int | None = None
         if decision == "accept" or (not decision and typed):
-            tip = typed or (candidates[0][0] if candidates else None)
-            if tip is None:
+            if not typed and 1 not in shown:
                 problems.append(
                     Problem(
                         f"{name!r} has no candidate to accept",
@@ -163,16 +195,34 @@ def import_review_sheet(
                     )
                 )
                 continue
-        elif decision.isdigit() and 1 <= int(decision) <= len(candidates):
-            tip = candidates[int(decision) - 1][0]
+            tip = typed or shown[1]
+            picked = None if typed else 1
+        elif decision.isdigit() and int(decision) in shown:
+            picked = int(decision)
+            tip = shown[picked]
         else:
             problems.append(
                 Problem(
-                    f"decision {record['decision']!r} is not accept, reject, blank or a "
-                    f"candidate number (1 to {len(candidates)})",
+                    f"decision {record['decision']!r} is not accept, reject, blank or "
+                    f"{_shown_range(shown)}",
                     file=str(source),
                     row=row,
                     field="decision",
+                    hint="choose among the candidates the row shows, or type the tip "
+                    "label in the tip_label column",
+                )
+            )
+            continue
+        if picked is not None and tip not in {c[0] for c in candidates}:
+            listed = ", ".join(repr(c[0]) for c in candidates) or "none"
+            problems.append(
+                Problem(
+                    f"candidate {picked} of {name!r} reads {tip!r}, which is not among its "
+                    f"candidates in the store ({listed})",
+                    file=str(source),
+                    row=row,
+                    field=f"candidate_{picked}",
+                    hint="export a fresh sheet, or type the tip label in the tip_label column",
                 )
             )
             continue
