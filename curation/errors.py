@@ -88,6 +88,9 @@ class TipledgerError(Exception):
     field: str | None = None
     hint: str | None = None
     problems: list[Problem] = dataclass_field(default_factory=list)
+    #: Machine-readable context for a program (e.g. the decision in force
+    #: after a conflict); not part of the message.
+    details: dict[str, Any] = dataclass_field(default_factory=dict)
 
     def __post_init__(self) -> None:
         super().__init__(self.message)

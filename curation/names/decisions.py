@@ -18,16 +18,17 @@ import pandas as pd
 from pydantic import BaseModel, Field
 from rapidfuzz import process
 from sqlalchemy import insert, select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from curation import jsontext
-from curation.errors import InputError, NotFoundError, Problem
+from curation.errors import ConflictError, InputError, NotFoundError, Problem
 from curation.findings import Finding
 from curation.names.match import STAGES, MatchOptions, match_findings, match_names
-from curation.store.decisions import current_decisions
+from curation.store.decisions import current_decisions, decisions_for_names, known_written_names
 from curation.store.engine import Store
 from curation.store.ledger import current_user, record_event, record_findings
-from curation.store.lineage import lineage_of
+from curation.store.lineage import held_tips, lineage_of
 from curation.store.models import Measurement, NameDecision, Synonym
 from curation.timestamps import now
 from curation.trees.stored import tip_labels_of_set
@@ -143,11 +144,25 @@ def reconcile_names(
         A :class:`ReconcileReport` with counts per stage and status, the
         findings and both leftover lists.
 
+    Two runs at once are safe: the store lets a name have one first
+    decision, so the run that records second is refused and runs once more,
+    reusing what the first recorded.
+
     Raises:
         NotFoundError: no such tree set.
+        ConflictError: the store changed under the run twice in a row.
     """
     opts = options or MatchOptions()
     user = current_user(who)
+    try:
+        return _reconcile(store, tree_set_id, opts, user)
+    except ConflictError:
+        # Another run recorded first decisions for the same names at the
+        # same moment: once more, reusing what it recorded.
+        return _reconcile(store, tree_set_id, opts, user)
+
+
+def _reconcile(store: Store, tree_set_id: int, opts: MatchOptions, user: str) -> ReconcileReport:
     with store.transaction() as session:
         origin = lineage_of(session, tree_set_id).origin_id
         tips = tip_labels_of_set(session, origin)
@@ -202,7 +217,15 @@ def reconcile_names(
             for r, p in zip(fresh.itertuples(index=False), fresh_prev, strict=True)
         ]
         if rows:
-            session.execute(insert(NameDecision), rows)
+            try:
+                session.execute(insert(NameDecision), rows)
+            except IntegrityError:
+                raise ConflictError(
+                    f"another reconciliation or decision for tree set {origin} was recorded "
+                    "while this one ran; nothing was recorded",
+                    field="tree set",
+                    hint="run the reconciliation again: it keeps what the other recorded",
+                ) from None
         # Findings over everything in force now: earlier decisions and this run.
         kept = settled.assign(candidates=[[] for _ in range(len(settled))], reason="")
         in_force = pd.concat(
@@ -260,16 +283,25 @@ def _close_tips(label: str, tips: list[str]) -> str:
 
 
 def check_decisions(
-    session: Session, tree_set_id: int, items: list[dict[str, Any]]
+    session: Session,
+    tree_set_id: int,
+    items: list[dict[str, Any]],
+    *,
+    current: pd.DataFrame | None = None,
 ) -> list[Problem]:
     """Return every problem of a person's decisions (see
     :func:`apply_decisions`): unknown written names, statuses and tips (a
-    tip must be one of the lineage's origin, see :mod:`curation.store.lineage`)."""
+    tip must be one of the lineage's origin, see :mod:`curation.store.lineage`).
+    Only the names and tips the items name are read from the store.
+    ``current`` is the decisions in force for those names, when already read."""
     lineage = lineage_of(session, tree_set_id)
-    tips = tip_labels_of_set(session, lineage.origin_id)
-    tip_set = set(tips)
-    current = current_decisions(session, tree_set_id)
-    known = set(written_names(session)) | set(current["written_name"])
+    names = [item["written_name"] for item in items]
+    if current is None:
+        current = decisions_for_names(session, lineage.origin_id, names)
+    known = known_written_names(session, names) | set(current.index)
+    wanted_tips = [str(i.get("tip_label")) for i in items if i.get("status") == "accepted"]
+    held = held_tips(session, lineage.origin_id, wanted_tips)
+    all_tips: list[str] | None = None
     problems: list[Problem] = []
     for item in items:
         name, status, tip = item["written_name"], item["status"], item.get("tip_label")
@@ -293,11 +325,13 @@ def check_decisions(
                     value=status,
                 )
             )
-        if status == "accepted" and tip not in tip_set:
+        if status == "accepted" and str(tip) not in held:
+            if all_tips is None:  # only to name close tips in the message
+                all_tips = tip_labels_of_set(session, lineage.origin_id)
             problems.append(
                 Problem(
                     f"tip {tip!r} for {name!r} is not in {lineage.describe()} "
-                    f"(close tips: {_close_tips(str(tip), tips)})",
+                    f"(close tips: {_close_tips(str(tip), all_tips)})",
                     row=row,
                     field="tip_label",
                     value=tip,
@@ -305,6 +339,42 @@ def check_decisions(
                 )
             )
     return problems
+
+
+def _in_force(current: pd.DataFrame, name: str) -> dict[str, Any] | None:
+    """The decision in force for ``name`` as plain values, or None."""
+    if name not in current.index:
+        return None
+    row = current.loc[name]
+    at = row["decided_at"]
+    return {
+        "decision_id": int(row["decision_id"]),
+        "written_name": name,
+        "status": row["status"],
+        "tip_label": row["tip_label"],
+        "stage": row["stage"],
+        "decided_by": row["decided_by"],
+        "decided_at": at.isoformat() if hasattr(at, "isoformat") else str(at),
+    }
+
+
+def _conflict(conflicts: list[dict[str, Any]]) -> ConflictError:
+    first = conflicts[0]["current"]
+    shown = (
+        f"{first['status']} by {first['decided_by']} (decision {first['decision_id']}"
+        + (f", tip {first['tip_label']!r}" if first["tip_label"] else "")
+        + ")"
+        if first
+        else "no decision"
+    )
+    return ConflictError(
+        f"{len(conflicts)} decision(s) changed since they were read: for "
+        f"{conflicts[0]['written_name']!r} the decision in force is now {shown}; "
+        "nothing was recorded",
+        field="expected_decision_id",
+        hint="look at the decision in force and decide again if it still needs it",
+        details={"conflicts": conflicts},
+    )
 
 
 def apply_decisions(
@@ -321,21 +391,39 @@ def apply_decisions(
 
     Each item has ``written_name``, ``status`` (accepted, rejected or
     pending), ``tip_label`` (required when accepted) and optional ``note``,
-    ``stage`` and ``row`` (the input row, for messages). Every item is
+    ``stage``, ``row`` (the input row, for messages) and
+    ``expected_decision_id``: the id of the decision in force the person
+    saw (None: the name had none), for optimistic concurrency. Every item is
     checked before anything is added. The decisions are recorded on the
-    origin of ``tree_set_id``'s lineage (:mod:`curation.store.lineage`).
+    origin of ``tree_set_id``'s lineage (:mod:`curation.store.lineage`), each
+    superseding the decision in force; the store lets a decision be
+    superseded only once, so of two people deciding the same name at once
+    one is refused.
 
     Raises:
         InputError: listing every problem (unknown status, tip or name).
+        ConflictError: a decision in force is not the one expected, or
+            another person superseded it at the same moment (``details``
+            holds the decisions in force); nothing is recorded.
     """
-    problems = check_decisions(session, tree_set_id, items)
     origin = lineage_of(session, tree_set_id).origin_id
-    current = current_decisions(session, origin).set_index("written_name")
+    current = decisions_for_names(session, origin, [i["written_name"] for i in items])
+    problems = check_decisions(session, tree_set_id, items, current=current)
     if problems:
         raise InputError(
             f"{len(problems)} problem(s) in the decisions; nothing was recorded",
             problems=problems,
         )
+    conflicts = []
+    for item in items:
+        if "expected_decision_id" not in item:
+            continue
+        now_in_force = _in_force(current, item["written_name"])
+        seen = now_in_force["decision_id"] if now_in_force else None
+        if item["expected_decision_id"] != seen:
+            conflicts.append({"written_name": item["written_name"], "current": now_in_force})
+    if conflicts:
+        raise _conflict(conflicts)
     user = current_user(who)
     event = record_event(
         session,
@@ -376,7 +464,11 @@ def apply_decisions(
             event_id=event.id,
         )
         session.add(decision)
-        session.flush()
+        try:
+            session.flush()
+        except IntegrityError:
+            # Another transaction superseded the same decision first.
+            raise _conflict([{"written_name": name, "current": _in_force(current, name)}]) from None
         ids.append(decision.id)
         superseded.append(prev_id)
     return DecisionResult(event_id=event.id, decision_ids=ids, superseded_ids=superseded)

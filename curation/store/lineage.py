@@ -28,6 +28,7 @@ from curation.store.models import Tip, Tree, TreeSet
 __all__ = [
     "Lineage",
     "get_tree_set",
+    "held_tips",
     "lineage_of",
     "set_tip_labels",
 ]
@@ -61,6 +62,22 @@ def set_tip_labels(session: Session, tree_set_id: int) -> list[str]:
         .distinct()
     ).all()
     return sorted(rows)
+
+
+def held_tips(session: Session, tree_set_id: int, labels: list[str]) -> set[str]:
+    """Return those of ``labels`` that are tips of some tree of one set."""
+    found: set[str] = set()
+    wanted = sorted({str(label) for label in labels})
+    for start in range(0, len(wanted), 500):
+        found.update(
+            session.scalars(
+                select(Tip.label)
+                .join(Tree, Tip.tree_id == Tree.id)
+                .where(Tree.tree_set_id == tree_set_id, Tip.label.in_(wanted[start : start + 500]))
+                .distinct()
+            )
+        )
+    return found
 
 
 @dataclass(frozen=True)
