@@ -49,9 +49,9 @@ NearZeroOption = Annotated[
     typer.Option(
         "--near-zero",
         help="Share of a tree's height below which a branch is too short to be real and "
-        f"counts as zero length (default {DEFAULT_NEAR_ZERO:g}: 400 years on a tree 40 "
-        "million years deep, younger than any split between species a dated tree resolves; "
-        "our reasoning). 0 catches exact zeros only; exact zeros are always caught.",
+        "counts as zero length; 0 counts exact zeros only (they always count). The default "
+        "is 400 years on a tree 40 million years deep, younger than any split between "
+        "species a dated tree resolves (our reasoning).",
     ),
 ]
 
@@ -203,6 +203,11 @@ def make_ultrametric_command(
     user: UserOption = None,
 ) -> None:
     """Make trees ultrametric when their deviation is rounding-level, in a derived tree set.
+
+    A deviation is rounding-level when the decimals written in the file can
+    explain it and it is at most 1% of the tree's height; anything more is
+    substantive and needs --force. A run that changes no tree says so and
+    stores nothing.
 
     Example: tipledger make-ultrametric 1 --method extend
     """
