@@ -453,3 +453,44 @@ def test_verify_reads_a_table_with_a_byte_order_mark_or_a_repeated_column(
     # repeated column is reported against the schema, not a crash.
     assert not any("measurements_used.csv" in p for p in problems), problems
     assert any("names.csv: its header" in p for p in problems), problems
+
+
+def test_a_stored_repair_that_changed_nothing_is_not_listed_as_applied(
+    store: Store, tmp_path: Path
+) -> None:
+    # A derived set as earlier versions stored it for a repair that changed
+    # no tree: its ledger event says trees_changed 0. The zero-length tip
+    # it was meant to repair is still there, so the finding must not say
+    # "repaired", nor the report count the repair as applied.
+    from curation.store.ledger import record_event
+    from curation.store.models import TreeSet
+    from curation.trees import check_trees
+    from curation.trees.stored import add_tree, load_tree_set
+
+    zero_tip = (
+        "((Alpha_one:0,Alpha_two:0.3):0.2,(Beta_three:0.4,Beta_four:0.4):0.1,Gamma_five:0.5);\n"
+    )
+    tree_set_id = build_store(store, tmp_path, tree_text=zero_tip)
+    check_trees(store, tree_set_id)
+    with store.transaction() as session:
+        event = record_event(
+            session,
+            "lengthen-zero-tips",
+            subject=f"tree set {tree_set_id}",
+            summary="lengthen zero tips: 0 of 1 trees changed",
+            parameters={"length": 1e-6, "tree_set_id": tree_set_id, "trees_changed": 0},
+        )
+        derived = TreeSet(
+            name="copy", derived_from_id=tree_set_id, repair="lengthen-zero-tips", event_id=event.id
+        )
+        session.add(derived)
+        session.flush()
+        for tree, arrays in load_tree_set(session, tree_set_id):
+            add_tree(session, derived, arrays, index_in_file=0, derived_from_id=tree.id)
+        derived_id = derived.id
+    make_bundle(store, tmp_path / "b", BundleOptions(tree_set_id=derived_id, diagnostics=False))
+    findings = pd.read_csv(tmp_path / "b" / "findings.csv", keep_default_na=False)
+    zero = findings[findings["code"] == "tree.zero_length_terminal"]
+    assert list(zero["action"]) == ["reported; tree used as stored"]
+    page = (tmp_path / "b" / "report.html").read_text(encoding="utf-8")
+    assert '<td>repairs applied</td><td class="num">0</td>' in page

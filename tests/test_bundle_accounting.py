@@ -109,7 +109,7 @@ def _tip_pruned_from_the_tree(store: Store, tree_set_id: int, folder: Path) -> B
     derived = prune_trees(
         store, tree_set_id, tips=["Alpha_one", "Alpha_two", "Beta_three", "Gamma_five"]
     )
-    return BundleOptions(tree_set_id=derived.id, diagnostics=False)
+    return BundleOptions(tree_set_id=derived.derived_tree_set_id, diagnostics=False)
 
 
 def _imported_after_reconciling(store: Store, tree_set_id: int, folder: Path) -> BundleOptions:

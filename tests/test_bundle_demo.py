@@ -9,6 +9,7 @@ import json
 from collections.abc import Iterator
 from pathlib import Path
 
+import dendropy
 import pandas as pd
 import pytest
 
@@ -102,3 +103,35 @@ def test_report_shows_each_kind_of_planted_defect_and_its_handling(demo: Path) -
             assert cells in summary, (code, action)
             assert f'{cells}<td class="num">{len(group)}</td>' in summary
     assert "Repairs applied" in page and "make-ultrametric" in page
+
+
+def test_every_repair_listed_changed_the_tree_and_left_no_near_zero_tips(demo: Path) -> None:
+    bundle = demo / "bundle"
+    provenance = json.loads((bundle / "provenance.json").read_text(encoding="utf-8"))
+    repairs = provenance["repairs"]
+    assert [r["repair"] for r in repairs] == ["make-ultrametric", "lengthen-zero-tips"]
+    for repair in repairs:  # a repair that changed nothing is not applied
+        assert repair["parameters"]["trees_changed"] >= 1, repair
+    # DendroPy (Sukumaran and Holder 2010) on the bundle's tree: still
+    # ultrametric, and no terminal branch below 1e-5 of its height.
+    tree = dendropy.Tree.get(
+        path=str(bundle / provenance["tree_file"]), schema="newick", preserve_underscores=True
+    )
+    tree.calc_node_ages(ultrametricity_precision=1e-6)
+    height = tree.seed_node.age
+    shortest = min(leaf.edge.length for leaf in tree.leaf_node_iter())
+    assert shortest >= 1e-5 * height
+
+
+def test_report_diagnostics_show_no_artefact_of_near_zero_branches(demo: Path) -> None:
+    bundle = demo / "bundle"
+    provenance = json.loads((bundle / "provenance.json").read_text(encoding="utf-8"))
+    diagnostics = provenance["diagnostics"]
+    assert {d["trait"] for d in diagnostics} >= {"body_length", "body_mass"}
+    for d in diagnostics:
+        assert d.get("dominance") is None, d["trait"]
+    page = html.unescape((bundle / "report.html").read_text(encoding="utf-8"))
+    section = page.split("Phylogenetic diagnostics", 1)[1].split("Findings and what was done")[0]
+    assert "body_length" in section
+    assert "transform the branch lengths" not in section
+    assert "dominate" not in section

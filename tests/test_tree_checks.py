@@ -4,12 +4,15 @@ reference for distances and ultrametricity, and checks of stored tree sets."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import dendropy
 import numpy as np
 import pytest
 from sqlalchemy import func, select
 from tree_gallery import (
     GALLERY,
+    ROUNDING_GALLERY,
     dendropy_root_distances,
     random_newick,
     read_dendropy,
@@ -19,13 +22,20 @@ from tree_gallery import (
 )
 
 from curation.errors import InputError, NotFoundError
-from curation.store import Store
+from curation.store import Store, create_store
 from curation.store.models import LedgerEvent, StoredFinding, Tree, TreeSet
 from curation.trees.arrays import TreeArrays, parse_newick
-from curation.trees.checks import check_tree, check_trees, measure_ultrametricity, tree_findings
+from curation.trees.checks import (
+    DEFAULT_NEAR_ZERO,
+    check_tree,
+    check_trees,
+    measure_ultrametricity,
+    tree_findings,
+)
 from curation.trees.edits import children_sorted
 from curation.trees.nodes import name_nodes
-from curation.trees.stored import add_tree
+from curation.trees.stored import add_tree, load_tree_set
+from tests.test_cli import run_cli
 
 
 def codes(newick: str, **options: object) -> list[str]:
@@ -318,3 +328,149 @@ def test_check_trees_bad_input_changes_nothing(store: Store) -> None:
     with pytest.raises(InputError, match="tolerance"):
         check_trees(store, set_id, tolerance=-1e-3)
     assert _events(store) == before
+
+
+# --- the rounding judgement over written decimals ---
+
+
+def _dendropy_spread_and_height(text: str) -> tuple[float, float]:
+    # DendroPy's node ages (Sukumaran and Holder 2010): with is_force_max_age
+    # the root's age is the longest root-to-tip path, with is_force_min_age
+    # the shortest.
+    oldest = read_dendropy(text)
+    oldest.calc_node_ages(is_force_max_age=True)
+    youngest = read_dendropy(text)
+    youngest.calc_node_ages(is_force_min_age=True)
+    return oldest.seed_node.age - youngest.seed_node.age, oldest.seed_node.age
+
+
+@pytest.mark.parametrize("name", sorted(ROUNDING_GALLERY))
+def test_rounding_verdict_weighs_the_spread_against_the_height(name: str) -> None:
+    text, verdict = ROUNDING_GALLERY[name]
+    report = measure_ultrametricity(parse_newick(text))
+    spread, height = _dendropy_spread_and_height(text)
+    assert report["spread"] == pytest.approx(spread, rel=1e-9, abs=1e-12)
+    assert report["height"] == pytest.approx(height, rel=1e-12)
+    assert report["verdict"] == verdict, report
+    if verdict == "rounding-level":
+        # DendroPy accepts the tree as ultrametric at the precision of the
+        # written decimals (twice the largest path allowance).
+        read_dendropy(text).calc_node_ages(
+            ultrametricity_precision=2 * report["rounding_allowance"]
+        )
+
+
+def test_whole_number_lengths_do_not_pass_a_real_deviation_off_as_rounding() -> None:
+    # A spread of 2 on a height of 15 (13%): each path's allowance (two
+    # whole numbers, +-0.5 each) could cover it, but no rounding spreads
+    # tips that far.
+    text, _ = ROUNDING_GALLERY["integers, substantive"]
+    found = [f for f in check_tree(parse_newick(text)) if f.code == "tree.not_ultrametric"]
+    assert found[0].details["verdict"] == "substantive"
+    assert found[0].details["reason"] == "share"
+    assert "too few decimals" in found[0].message
+
+
+def test_make_ultrametric_refuses_substantive_deviations_on_the_command_line(
+    tmp_path: Path,
+) -> None:
+    path = tmp_path / "lab.db"
+    with create_store(path) as opened:
+        ids = {name: _add_set(opened, [text], name) for name, (text, _) in ROUNDING_GALLERY.items()}
+
+    def counts() -> tuple[int, int, int]:
+        with create_store(path) as opened, opened.reading() as session:
+            return tuple(  # type: ignore[return-value]
+                int(session.scalar(select(func.count(model.id))) or 0)
+                for model in (LedgerEvent, TreeSet, Tree)
+            )
+
+    for name, (_text, verdict) in sorted(ROUNDING_GALLERY.items()):
+        before = counts()
+        done = run_cli("make-ultrametric", str(ids[name]), "--store", str(path))
+        output = done.stdout + done.stderr
+        assert "Traceback" not in output, name
+        if verdict == "substantive":
+            assert done.returncode == 2, (name, output)
+            assert "substantive" in output and "--force" in output, name
+            assert counts() == before, name
+            continue
+        assert done.returncode == 0, (name, output)
+        assert "Derived tree set" in done.stdout, name
+        with create_store(path) as opened, opened.reading() as session:
+            derived = session.scalars(
+                select(TreeSet.id).where(TreeSet.derived_from_id == ids[name])
+            ).one()
+            ((tree, _arrays),) = load_tree_set(session, derived)
+        # DendroPy finds the repaired tree ultrametric at 1e-9.
+        read_dendropy(tree.newick).calc_node_ages(ultrametricity_precision=1e-9)
+
+
+# --- zero and near-zero branches ---
+
+# Every tip at 40. The sister tips Aa_a and Bb_b have terminal branches of
+# 0.0002 and the branch above (Aa_a, Bb_b, Ee_e) is 0.0001, all below 1e-5
+# of the height (0.0004); Ff_f and Gg_g have terminal branches of exactly
+# 0 and (Cc_c, Dd_d) an internal branch of exactly 0.
+#
+#         +-- Aa_a 0.0002
+#     +---+ 19.9998
+#   +-+   +-- Bb_b 0.0002
+#   | |   0.0001 above (Aa_a, Bb_b, Ee_e)
+#   | +-- Ee_e 20
+# +-+ 19.9999
+# | +-- Hh_h 20.0001
+# +
+# |   +-- Ff_f 0, Gg_g 0  (their parent 30 below)
+# +---+ 10
+#     +-- (Cc_c 30, Dd_d 30) on a branch of 0
+NEAR_ZERO_TREE = (
+    "((((Aa_a:0.0002,Bb_b:0.0002):19.9998,Ee_e:20):0.0001,Hh_h:20.0001):19.9999,"
+    "((Ff_f:0,Gg_g:0):30,(Cc_c:30,Dd_d:30):0):10);"
+)
+
+
+def _dendropy_short_branches(text: str, share: float) -> tuple[set[str], int]:
+    """Tips on branches shorter than share x height (or exactly 0), and the
+    number of such internal branches, by DendroPy's edge lengths and
+    root-to-tip distances."""
+    tree = read_dendropy(text)
+    height = max(dendropy_root_distances(tree).values())
+    cutoff = share * height
+    tips = {
+        node.taxon.label
+        for node in tree.leaf_node_iter()
+        if node.edge.length == 0 or node.edge.length < cutoff
+    }
+    internal = sum(
+        1
+        for node in tree.preorder_internal_node_iter(exclude_seed_node=True)
+        if node.edge.length == 0 or node.edge.length < cutoff
+    )
+    return tips, internal
+
+
+def test_near_zero_branches_are_found_on_the_command_line(tmp_path: Path) -> None:
+    path = tmp_path / "lab.db"
+    with create_store(path) as opened:
+        set_id = _add_set(opened, [NEAR_ZERO_TREE])
+    for share in (DEFAULT_NEAR_ZERO, 0.0):
+        args = ["check-trees", str(set_id), "--store", str(path)]
+        if share != DEFAULT_NEAR_ZERO:
+            args += ["--near-zero", str(share)]
+        done = run_cli(*args)
+        assert done.returncode == 0, done.stdout + done.stderr
+        with create_store(path) as opened:
+            found = tree_findings(opened, set_id)
+        terminal = found[found["code"] == "tree.zero_length_terminal"]
+        internal = found[found["code"] == "tree.zero_length_internal"]
+        tips, internal_count = _dendropy_short_branches(NEAR_ZERO_TREE, share)
+        assert set(terminal["subject"]) == {f"tip {t!r}" for t in tips}
+        assert len(internal) == internal_count
+        if share:
+            assert tips == {"Aa_a", "Bb_b", "Ff_f", "Gg_g"} and internal_count == 2
+            assert "too short to be real" in " ".join(terminal["message"])
+        else:
+            assert tips == {"Ff_f", "Gg_g"} and internal_count == 1  # exact zeros only
+    refused = run_cli("check-trees", str(set_id), "--near-zero", "2", "--store", str(path))
+    assert refused.returncode == 2 and "--near-zero" in refused.stdout + refused.stderr

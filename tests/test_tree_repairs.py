@@ -4,6 +4,8 @@ a derived set with one ledger event, leaving the original untouched."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -19,7 +21,7 @@ from tree_gallery import (
 )
 
 from curation.errors import ConflictError, InputError, NotFoundError
-from curation.store import Store
+from curation.store import Store, create_store
 from curation.store.models import LedgerEvent, Tree, TreeSet
 from curation.trees.arrays import TreeArrays, parse_newick, to_newick
 from curation.trees.checks import check_tree, measure_ultrametricity
@@ -40,6 +42,7 @@ from curation.trees.repairs import (
     sort_children,
 )
 from curation.trees.stored import add_tree, load_tree_set
+from tests.test_cli import run_cli
 
 
 def reads_back_the_same(tree: TreeArrays, expected: dict[frozenset[str], float]) -> None:
@@ -192,12 +195,56 @@ def test_substantive_deviation_is_refused_unless_forced() -> None:
 
 
 def test_zero_tips_lengthened() -> None:
-    tree = parse_newick(GALLERY["zero tips"])
-    result = zero_tips_lengthened(tree, 1e-6)
-    assert "tree.zero_length_terminal" not in codes(result)
-    assert sorted(result.edge_length[result.tips].tolist()) == [1e-6, 1e-6, 1.0, 1.0]
+    text = GALLERY["zero tips"]  # ((A:0,B:0):2,(C:1,D:1):1): every tip at 2
+    tree = parse_newick(text)
+    kept = zero_tips_lengthened(tree, 0.01)
+    assert "tree.zero_length_terminal" not in codes(kept)
+    assert sorted(kept.edge_length[kept.tips].tolist()) == [0.01, 0.01, 1.0, 1.0]
+    # The parent of A and B moved 0.01 towards the root: every root-to-tip
+    # distance is as DendroPy measures it on the original.
+    after = dendropy_root_distances(read_dendropy(to_newick(kept)))
+    assert after == pytest.approx(dendropy_root_distances(read_dendropy(text)), abs=1e-12)
+    alone = zero_tips_lengthened(tree, 0.01, keep_depths=False)
+    assert dendropy_root_distances(read_dendropy(to_newick(alone)))["A"] == pytest.approx(2.01)
+    # Without a length: a thousandth of the height (2).
+    default = zero_tips_lengthened(tree)
+    assert sorted(default.edge_length[default.tips].tolist())[:2] == [0.002, 0.002]
     with pytest.raises(InputError, match="--length"):
         zero_tips_lengthened(tree, 0)
+    # 1e-6 is itself near zero on a tree of height 2 (below 2e-5).
+    with pytest.raises(InputError, match="itself near zero"):
+        zero_tips_lengthened(tree, 1e-6)
+    assert to_newick(zero_tips_lengthened(tree, 1e-6, near_zero=0.0)).count("1e-06") == 2
+    with pytest.raises(InputError, match="--near-zero"):
+        zero_tips_lengthened(tree, 0.01, near_zero=1.5)
+
+
+def test_near_zero_tips_are_lengthened_by_the_checks_rule() -> None:
+    # 0.0002 on a tree of height 40 is below 1e-5 of the height: near zero.
+    text = "((A:0.0002,B:0.0002):39.9998,(C:20,D:20):20);"
+    tree = parse_newick(text)
+    assert codes(tree).count("tree.zero_length_terminal") == 2
+    result = zero_tips_lengthened(tree, 0.5)
+    assert codes(result) == []
+    assert dendropy_root_distances(read_dendropy(to_newick(result))) == pytest.approx(
+        dendropy_root_distances(read_dendropy(text)), abs=1e-9
+    )
+    # With a smaller share they are not near zero, and nothing changes.
+    assert zero_tips_lengthened(tree, 0.5, near_zero=1e-6) is tree
+
+
+def test_a_tip_whose_parent_cannot_give_the_length_is_lengthened_alone() -> None:
+    # The parent of A and B sits 0.001 below its own parent: it cannot move
+    # 0.002 up, so A and B end 0.002 further from the root; C's parent is
+    # the root, which cannot move either.
+    text = "((((A:0,B:0):0.001,E:0.001):1.999,D:2):1,C:0);"
+    tree = parse_newick(text)
+    result = zero_tips_lengthened(tree)  # 0.001 of the height 3: 0.003
+    before = dendropy_root_distances(read_dendropy(text))
+    after = dendropy_root_distances(read_dendropy(to_newick(result)))
+    assert after["A"] == pytest.approx(before["A"] + 0.003)
+    assert after["C"] == pytest.approx(0.003)
+    assert after["D"] == pytest.approx(before["D"]) and after["E"] == pytest.approx(before["E"])
 
 
 def test_sorted_children_are_one_text_for_one_tree() -> None:
@@ -258,6 +305,8 @@ POSTERIOR = [
     "((A:1,B:1,C:1):1,D:2);",
     "((A:1,B:1):1,(C:1,D:1):1);",
     "(((A:1,B:1):0,C:1):1,D:2);",
+    # zero-length tips A and B, off ultrametric by rounding (2.01 against 2)
+    "((A:0,B:0):2.01,(C:1,D:1):1);",
 ]
 
 
@@ -268,18 +317,21 @@ def test_each_repair_makes_a_derived_set_with_one_event(store: Store) -> None:
         ("resolve-polytomies", lambda: resolve_polytomies(store, set_id, seed=3)),
         ("collapse-short-branches", lambda: collapse_short_branches(store, set_id, threshold=0.5)),
         ("make-ultrametric", lambda: make_ultrametric(store, set_id)),
-        ("lengthen-zero-tips", lambda: lengthen_zero_tips(store, set_id, length=1e-6)),
+        ("lengthen-zero-tips", lambda: lengthen_zero_tips(store, set_id, length=1e-3)),
         ("sort-children", lambda: sort_children(store, set_id)),
     ]
     for action, run in repairs:
         events, sets, trees = _counts(store)
-        derived = run()
-        assert _counts(store) == (events + 1, sets + 1, trees + 3)
+        report = run()
+        assert report.changed and report.trees == len(POSTERIOR)
+        assert _counts(store) == (events + 1, sets + 1, trees + len(POSTERIOR))
         with store.reading() as session:
-            event = session.get(LedgerEvent, derived.event_id)
+            event = session.get(LedgerEvent, report.event_id)
             assert event is not None and event.action == action
             assert event.parameters["tree_set_id"] == set_id
-            assert event.parameters["derived_tree_set_id"] == derived.id
+            assert event.parameters["derived_tree_set_id"] == report.derived_tree_set_id
+            assert event.parameters["trees_changed"] == report.trees_changed >= 1
+            derived = session.get(TreeSet, report.derived_tree_set_id)
             stored = load_tree_set(session, derived.id)
             originals = load_tree_set(session, set_id)
         assert derived.derived_from_id == set_id and derived.repair == action
@@ -297,8 +349,10 @@ def test_repairing_one_tree(store: Store) -> None:
     set_id = _add_set(store, POSTERIOR)
     with store.reading() as session:
         first = session.scalars(select(Tree.id).where(Tree.tree_set_id == set_id)).first()
-    derived = resolve_polytomies(store, tree_id=first)
-    assert derived.tree_count == 1
+    report = resolve_polytomies(store, tree_id=first)
+    assert report.trees == report.trees_changed == 1
+    with store.reading() as session:
+        assert session.get(TreeSet, report.derived_tree_set_id).tree_count == 1
 
 
 def test_bad_repairs_change_nothing(store: Store) -> None:
@@ -322,3 +376,108 @@ def test_bad_repairs_change_nothing(store: Store) -> None:
     assert _counts(store) == before
     make_ultrametric(store, fossil, force=True)
     assert _counts(store) == (before[0] + 1, before[1] + 1, before[2] + 1)
+
+
+# --- a repair that changes nothing stores nothing ---
+
+CLEAN = ["((A:1,B:1):1,(C:1,D:1):1);", "((A:1,B:1):1.5,(C:2,D:2):0.5);"]
+
+
+def test_a_repair_that_changes_nothing_stores_nothing_and_says_why(store: Store) -> None:
+    set_id = _add_set(store, CLEAN)
+    sorted_set = _add_set(store, [to_newick(children_sorted(parse_newick(t))) for t in CLEAN])
+    before = _counts(store)
+    for report, why in [
+        (lengthen_zero_tips(store, set_id), "no terminal branch is zero"),
+        (make_ultrametric(store, set_id), "ultrametric already"),
+        (resolve_polytomies(store, set_id), "more than two children"),
+        (collapse_short_branches(store, set_id, threshold=0.1), "shorter than 0.1"),
+        (prune_trees(store, set_id, tips=["A", "B", "C", "D"]), "exactly these tips"),
+        (sort_children(store, sorted_set), "in order already"),
+    ]:
+        assert not report.changed, report.repair
+        assert report.trees == 2 and report.trees_changed == 0
+        assert report.derived_tree_set_id is None and report.event_id is None
+        assert report.message.startswith("Nothing changed") and why in report.message
+        assert "nothing was recorded" in report.message
+    assert _counts(store) == before
+
+
+def _cli_counts(path: Path) -> tuple[int, int, int]:
+    with create_store(path) as opened:
+        return _counts(opened)
+
+
+def test_repairs_that_change_nothing_say_so_on_the_command_line(tmp_path: Path) -> None:
+    path = tmp_path / "lab.db"
+    with create_store(path) as opened:
+        set_id = _add_set(opened, CLEAN)
+    before = _cli_counts(path)
+    for command in ("lengthen-zero-tips", "make-ultrametric"):
+        done = run_cli(command, str(set_id), "--store", str(path))
+        assert done.returncode == 0, done.stdout + done.stderr
+        assert "Nothing changed" in done.stdout and "Derived" not in done.stdout
+        assert _cli_counts(path) == before
+
+
+# Every tip at 40; the sister tips Aa_a and Bb_b are 0.0002 from their
+# parent, below 1e-5 of the height (0.0004): near zero.
+NEAR_ZERO_PAIR = "((Aa_a:0.0002,Bb_b:0.0002):39.9998,(Cc_c:20,Dd_d:20):20);"
+
+
+def _derived_newick(path: Path, derived_from: int) -> str:
+    with create_store(path) as opened, opened.reading() as session:
+        derived = session.scalars(
+            select(TreeSet.id)
+            .where(TreeSet.derived_from_id == derived_from)
+            .order_by(TreeSet.id.desc())
+        ).first()
+        ((tree, _arrays),) = load_tree_set(session, derived)
+    return tree.newick
+
+
+def test_lengthen_zero_tips_lengthens_near_zero_tips_on_the_command_line(
+    tmp_path: Path,
+) -> None:
+    path = tmp_path / "lab.db"
+    with create_store(path) as opened:
+        set_id = _add_set(opened, [NEAR_ZERO_PAIR])
+    original = read_dendropy(NEAR_ZERO_PAIR)
+    height = max(dendropy_root_distances(original).values())  # DendroPy: 40
+    done = run_cli("lengthen-zero-tips", str(set_id), "--store", str(path))
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "1 of 1 trees changed" in done.stdout
+    repaired = read_dendropy(_derived_newick(path, set_id))
+    # Root-to-tip distances are kept (DendroPy), the two tips now 0.001 of
+    # the height from their parent, and the check no longer finds them.
+    assert dendropy_root_distances(repaired) == pytest.approx(
+        dendropy_root_distances(original), abs=1e-9
+    )
+    tips = {leaf.taxon.label: leaf.edge.length for leaf in repaired.leaf_node_iter()}
+    assert tips["Aa_a"] == tips["Bb_b"] == pytest.approx(0.001 * height)
+    assert "tree.zero_length_terminal" not in codes(parse_newick(_derived_newick(path, set_id)))
+    alone = run_cli(
+        "lengthen-zero-tips",
+        str(set_id),
+        "--length",
+        "0.5",
+        "--lengthen-only",
+        "--store",
+        str(path),
+    )
+    assert alone.returncode == 0, alone.stdout + alone.stderr
+    assert "2 lengthened tips now end further from the root" in alone.stdout
+    moved = dendropy_root_distances(read_dendropy(_derived_newick(path, set_id)))
+    assert moved["Aa_a"] == pytest.approx(39.9998 + 0.5)
+
+
+def test_lengthen_zero_tips_refuses_a_length_that_is_itself_near_zero(tmp_path: Path) -> None:
+    path = tmp_path / "lab.db"
+    with create_store(path) as opened:
+        set_id = _add_set(opened, [NEAR_ZERO_PAIR])
+    before = _cli_counts(path)
+    done = run_cli("lengthen-zero-tips", str(set_id), "--length", "1e-6", "--store", str(path))
+    output = done.stdout + done.stderr
+    assert done.returncode == 2, output
+    assert "itself near zero" in output and "Traceback" not in output
+    assert _cli_counts(path) == before

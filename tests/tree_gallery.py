@@ -67,6 +67,50 @@ GALLERY: dict[str, str] = {
 }
 
 
+# Deviations from ultrametric written with different decimals, and the
+# verdict each must get: rounding-level when the written decimals can hide
+# the spread and it is small beside the height, substantive otherwise
+# (whatever the decimals). Depths are worked out beside each; the tests
+# measure them with DendroPy too.
+ROUNDING_GALLERY: dict[str, tuple[str, str]] = {
+    # A, B at 5000 and C, D at 5001: off by 1 in 5001 (0.02%), each path
+    # allowed 1 (two whole-number lengths, each +-0.5).
+    "integers, rounding": (
+        "((Aa_a:2500,Bb_b:2500):2500,(Cc_c:1667,Dd_d:1667):3334);",
+        "rounding-level",
+    ),
+    # A, B at 15 and C, D at 13: off by 2 in 15 (13%), though each path is
+    # allowed 1 and so 14 lies within both.
+    "integers, substantive": ("((Aa_a:10,Bb_b:10):5,(Cc_c:7,Dd_d:7):6);", "substantive"),
+    # A, B at 20.0 and C, D at 19.9: off by 0.1 in 20 (0.5%), allowance 0.1.
+    "one decimal, rounding": (
+        "((Aa_a:12.3,Bb_b:12.3):7.7,(Cc_c:5.1,Dd_d:5.1):14.8);",
+        "rounding-level",
+    ),
+    # A, B at 2.0 and C, D at 1.8: off by 0.2 in 2 (10%), allowance 0.1.
+    "one decimal, substantive": (
+        "((Aa_a:1.5,Bb_b:1.5):0.5,(Cc_c:1.2,Dd_d:1.2):0.6);",
+        "substantive",
+    ),
+    # A, B at 1.000000 and C at 1.000001: one unit of the sixth decimal.
+    "six decimals, rounding": (
+        "((Aa_a:0.333333,Bb_b:0.333333):0.666667,Cc_c:1.000001);",
+        "rounding-level",
+    ),
+    # A, B at 0.75 and C, D at 0.7, written to six decimals.
+    "six decimals, substantive": (
+        "((Aa_a:0.500000,Bb_b:0.500000):0.250000,(Cc_c:0.400000,Dd_d:0.400000):0.300000);",
+        "substantive",
+    ),
+    # A, B at 15.25 and C, D at 15.3: off by 0.05 (0.3%); A's path is
+    # allowed 0.505 (a whole number and two decimals), C's 0.1.
+    "mixed, rounding": ("((Aa_a:10,Bb_b:10):5.25,(Cc_c:7.5,Dd_d:7.5):7.8);", "rounding-level"),
+    # A, B at 15 and C, D at 14.4: off by 0.6 (4%); allowances 1 and 0.55
+    # would overlap at 14.
+    "mixed, substantive": ("((Aa_a:10,Bb_b:10):5,(Cc_c:7.4,Dd_d:7.4):7);", "substantive"),
+}
+
+
 def children_of(tree: TreeArrays) -> list[list[int]]:
     kids: list[list[int]] = [[] for _ in range(tree.node_count)]
     for node in range(1, tree.node_count):

@@ -14,7 +14,7 @@ import pandas as pd
 
 from curation.bundle.inputs import BundleInputs
 from curation.bundle.overview import TreeOverview, overview_tree
-from curation.bundle.tables import NAME_OUTCOMES, BundleTables
+from curation.bundle.tables import NAME_OUTCOMES, BundleTables, applied_repairs
 from curation.trees.arrays import TreeArrays
 
 __all__ = [
@@ -288,7 +288,7 @@ def render_report(
             ),
             ("traits", len(tables.traits)),
             ("findings", len(tables.findings)),
-            ("repairs applied", len(inputs.repairs)),
+            ("repairs applied", len(applied_repairs(inputs.repairs))),
         ],
         columns=["what", "count"],
     )

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -19,6 +20,7 @@ from curation.store.decisions import DECISION_COLUMNS
 __all__ = [
     "NAME_OUTCOMES",
     "BundleTables",
+    "applied_repairs",
     "build_tables",
     "finding_actions",
 ]
@@ -102,12 +104,20 @@ def _wide_species(species: pd.DataFrame, traits: pd.DataFrame, keep: list[str]) 
     return wide
 
 
+def applied_repairs(repairs: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Return the repairs of a chain that changed a tree. A derived set
+    whose ledger event says no tree changed (earlier versions stored one
+    for a repair that changed nothing) stays in the provenance but is no
+    repair applied."""
+    return [r for r in repairs if (r.get("parameters") or {}).get("trees_changed", 1) != 0]
+
+
 def finding_actions(inputs: BundleInputs, findings: pd.DataFrame) -> pd.Series:
     """Return, per finding, what was done about it in this bundle: a repair
     that addresses it, the name decisions it led to, whether a flagged
     measurement was left out of the species values, or that it was
     reported and the data used as they are."""
-    repairs = {r["repair"] for r in inputs.repairs}
+    repairs = {r["repair"] for r in applied_repairs(inputs.repairs)}
     m = inputs.measurements
     counted = set(m.loc[m["used"], "measurement_id"].to_numpy().tolist())
     by_curator = set(m.loc[m["curator_excluded"], "measurement_id"].to_numpy().tolist())

@@ -11,12 +11,17 @@ from curation.cli.app import StoreOption, UserOption, app, console
 from curation.cli.output import print_frame
 from curation.errors import InputError
 from curation.store import open_store
-from curation.store.models import TreeSet
-from curation.trees.checks import DEFAULT_OUTLIER_THRESHOLD, DEFAULT_TOLERANCE, tree_findings
+from curation.trees.checks import (
+    DEFAULT_NEAR_ZERO,
+    DEFAULT_OUTLIER_THRESHOLD,
+    DEFAULT_TOLERANCE,
+    tree_findings,
+)
 from curation.trees.checks import check_trees as check_trees_in_store
-from curation.trees.edits import UltrametricMethod
+from curation.trees.edits import DEFAULT_TIP_LENGTH_SHARE, UltrametricMethod
 from curation.trees.matrix import DEFAULT_MEMORY_LIMIT_BYTES
 from curation.trees.repairs import (
+    RepairReport,
     collapse_short_branches,
     lengthen_zero_tips,
     make_ultrametric,
@@ -39,13 +44,20 @@ ToleranceOption = Annotated[
         "still taken as ultrametric.",
     ),
 ]
+NearZeroOption = Annotated[
+    float,
+    typer.Option(
+        "--near-zero",
+        help="Share of a tree's height below which a branch is too short to be real and "
+        "counts as zero length; 0 counts exact zeros only (they always count). The default "
+        "is 400 years on a tree 40 million years deep, younger than any split between "
+        "species a dated tree resolves (our reasoning).",
+    ),
+]
 
 
-def _print_derived(derived: TreeSet) -> None:
-    console.print(
-        f"Derived tree set {derived.id} ({derived.tree_count} trees) from tree set "
-        f"{derived.derived_from_id} by {derived.repair}; ledger event {derived.event_id}."
-    )
+def _print_repair(report: RepairReport) -> None:
+    console.print(report.message)
 
 
 @app.command("check-trees")
@@ -57,6 +69,7 @@ def check_trees_command(
         float,
         typer.Option(help="Modified z-score of a log branch length above which it is extreme."),
     ] = DEFAULT_OUTLIER_THRESHOLD,
+    near_zero: NearZeroOption = DEFAULT_NEAR_ZERO,
     rooted: Annotated[
         bool | None,
         typer.Option("--rooted/--unrooted", help="Whether trees are meant to be rooted."),
@@ -81,6 +94,7 @@ def check_trees_command(
             tree_id=tree,
             tolerance=tolerance,
             outlier_threshold=outlier_threshold,
+            near_zero=near_zero,
             expect_rooted=rooted,
             matrix=matrix,
             memory_limit_bytes=memory_limit,
@@ -126,7 +140,7 @@ def prune_trees_command(
             raise InputError(f"there is no file {str(tips_file)!r}", field="tips file")
         keep += [line.strip() for line in tips_file.read_text().splitlines() if line.strip()]
     with open_store(store) as opened:
-        _print_derived(prune_trees(opened, tree_set, tips=keep, tree_id=tree, who=user))
+        _print_repair(prune_trees(opened, tree_set, tips=keep, tree_id=tree, who=user))
 
 
 @app.command("resolve-polytomies")
@@ -145,10 +159,10 @@ def resolve_polytomies_command(
     Example: tipledger resolve-polytomies 1 --branch-length 1e-6 --seed 7
     """
     with open_store(store) as opened:
-        derived = resolve_polytomies(
+        report = resolve_polytomies(
             opened, tree_set, tree_id=tree, branch_length=branch_length, seed=seed, who=user
         )
-    _print_derived(derived)
+    _print_repair(report)
 
 
 @app.command("collapse-short-branches")
@@ -164,10 +178,10 @@ def collapse_short_branches_command(
     Example: tipledger collapse-short-branches 1 --threshold 1e-6
     """
     with open_store(store) as opened:
-        derived = collapse_short_branches(
+        report = collapse_short_branches(
             opened, tree_set, threshold=threshold, tree_id=tree, who=user
         )
-    _print_derived(derived)
+    _print_repair(report)
 
 
 @app.command("make-ultrametric")
@@ -190,10 +204,15 @@ def make_ultrametric_command(
 ) -> None:
     """Make trees ultrametric when their deviation is rounding-level, in a derived tree set.
 
+    A deviation is rounding-level when the decimals written in the file can
+    explain it and it is at most 1% of the tree's height; anything more is
+    substantive and needs --force. A run that changes no tree says so and
+    stores nothing.
+
     Example: tipledger make-ultrametric 1 --method extend
     """
     with open_store(store) as opened:
-        derived = make_ultrametric(
+        report = make_ultrametric(
             opened,
             tree_set,
             tree_id=tree,
@@ -202,24 +221,58 @@ def make_ultrametric_command(
             force=force,
             who=user,
         )
-    _print_derived(derived)
+    _print_repair(report)
 
 
 @app.command("lengthen-zero-tips")
 def lengthen_zero_tips_command(
     tree_set: TreeSetArgument = None,
-    length: Annotated[float, typer.Option(help="New length of zero-length tip branches.")] = 1e-6,
+    length: Annotated[
+        float | None,
+        typer.Option(
+            help="New length of each zero or near-zero terminal branch, in the tree's units "
+            f"(default: {DEFAULT_TIP_LENGTH_SHARE:g} of each tree's height).",
+            show_default=False,
+        ),
+    ] = None,
+    near_zero: NearZeroOption = DEFAULT_NEAR_ZERO,
+    keep_depths: Annotated[
+        bool,
+        typer.Option(
+            "--keep-depths/--lengthen-only",
+            help="Keep every root-to-tip distance by moving the short tips' parent towards "
+            "the root (an ultrametric tree stays ultrametric), or lengthen the tips alone.",
+        ),
+    ] = True,
     tree: TreeOption = None,
     store: StoreOption = None,
     user: UserOption = None,
 ) -> None:
-    """Give zero-length terminal branches a small length, in a derived tree set.
+    """Lengthen zero and near-zero terminal branches, in a derived tree set.
 
-    Example: tipledger lengthen-zero-tips 1 --length 1e-6
+    A branch is near zero when it is shorter than --near-zero times its
+    tree's height (the rule check-trees uses). A run that changes no tree
+    says so and stores nothing.
+
+    Example: tipledger lengthen-zero-tips 1 --length 0.01 --near-zero 1e-5
     """
     with open_store(store) as opened:
-        derived = lengthen_zero_tips(opened, tree_set, length=length, tree_id=tree, who=user)
-    _print_derived(derived)
+        report = lengthen_zero_tips(
+            opened,
+            tree_set,
+            length=length,
+            near_zero=near_zero,
+            keep_depths=keep_depths,
+            tree_id=tree,
+            who=user,
+        )
+    _print_repair(report)
+    moved = report.details.get("tips_moved_from_root", 0)
+    if moved:
+        console.print(
+            f"{moved} lengthened tips now end further from the root: their parent's branch "
+            "was too short to give the length."
+        )
 
 
 @app.command("sort-children")
@@ -234,4 +287,4 @@ def sort_children_command(
     Example: tipledger sort-children 1
     """
     with open_store(store) as opened:
-        _print_derived(sort_children(opened, tree_set, tree_id=tree, who=user))
+        _print_repair(sort_children(opened, tree_set, tree_id=tree, who=user))

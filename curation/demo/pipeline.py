@@ -237,15 +237,28 @@ def _step_diagnose_traits(context: DemoContext) -> str:
 def _step_repair_tree(context: DemoContext) -> str:
     make_ultrametric = _function("curation.trees", "make_ultrametric")
     lengthen_zero_tips = _function("curation.trees", "lengthen_zero_tips")
-    # Opt-in repairs, each a derived tree set and a ledger event: first the
-    # rounding-level deviation, then the zero-length tips that would make
-    # the Brownian covariance singular.
-    level = make_ultrametric(context.store, _need(context, "tree_set"), who=DEMO_USER)
-    lengthened = lengthen_zero_tips(context.store, level.id, length=0.01, who=DEMO_USER)
-    with context.store.reading() as session:
-        tree_id = session.scalar(select(Tree.id).where(Tree.tree_set_id == lengthened.id))
-    context.results["repaired_tree"] = int(tree_id)
-    return f"made ultrametric (set {level.id}), zero-length tips lengthened (set {lengthened.id})"
+    # Opt-in repairs, each a derived tree set and a ledger event when it
+    # changes a tree: first the rounding-level deviation, then the zero and
+    # near-zero tips that would make the Brownian covariance singular or
+    # let one sister contrast dominate the diagnostics. A repair that
+    # changes nothing stores nothing, and the next one reads what is there.
+    current = int(_need(context, "tree_set"))
+    parts = []
+    for name, repair in (
+        ("made ultrametric", make_ultrametric),
+        ("zero and near-zero tips lengthened", lengthen_zero_tips),
+    ):
+        report = repair(context.store, current, who=DEMO_USER)
+        if report.changed:
+            current = int(report.derived_tree_set_id)
+            parts.append(f"{name} (set {current}, {report.trees_changed} of {report.trees} trees)")
+        else:
+            parts.append(report.message)
+    if current != _need(context, "tree_set"):
+        with context.store.reading() as session:
+            tree_id = session.scalar(select(Tree.id).where(Tree.tree_set_id == current))
+        context.results["repaired_tree"] = int(tree_id)
+    return "; ".join(parts)
 
 
 def _step_make_bundle(context: DemoContext) -> str:

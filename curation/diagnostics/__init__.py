@@ -20,6 +20,7 @@ from curation.diagnostics.diagnose import (
     trait_diagnostics,
 )
 from curation.diagnostics.fits import BrownianFit, LambdaFit, fit_brownian, fit_lambda
+from curation.diagnostics.influence import Dominance, find_dominance
 from curation.diagnostics.likelihood import BrownianPass, edge_variances
 from curation.diagnostics.pruning import PreparedTree, prepare_tree
 from curation.diagnostics.signal import SignalK, blomberg_k
@@ -28,6 +29,7 @@ __all__ = [
     "AdequacyCheck",
     "BrownianFit",
     "BrownianPass",
+    "Dominance",
     "LambdaFit",
     "MeasurementErrorDiagnostics",
     "PreparedTree",
@@ -38,6 +40,7 @@ __all__ = [
     "diagnose_traits",
     "diagnostics_frame",
     "edge_variances",
+    "find_dominance",
     "fit_brownian",
     "fit_lambda",
     "prepare_tree",

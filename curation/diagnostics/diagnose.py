@@ -22,7 +22,13 @@ Documented handling of awkward input:
   singular covariance) raise :class:`~curation.errors.InputError` from
   :func:`trait_diagnostics` and give status ``not_computed`` with the
   message in :func:`diagnose_traits`;
-- a missing SE for a tip that has a value counts as 0 (noted).
+- a missing SE for a tip that has a value counts as 0 (noted);
+- one contrast that carries most of the Brownian rate (typically a pair of
+  sister tips on near-zero terminal branches whose values differ) is
+  reported with the figures recomputed without its tips, and the sentence
+  says the figures rest on those tips instead of advising a
+  transformation of the branch lengths
+  (:mod:`curation.diagnostics.influence`).
 """
 
 from __future__ import annotations
@@ -35,8 +41,10 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel
 
-from curation.diagnostics.contrasts import AdequacyCheck, check_branch_lengths
+from curation.diagnostics.contrasts import AdequacyCheck, adequacy_of, contrast_table
 from curation.diagnostics.fits import BrownianFit, LambdaFit, fit_brownian, fit_lambda
+from curation.diagnostics.influence import Dominance, find_dominance
+from curation.diagnostics.likelihood import BrownianPass, edge_variances
 from curation.diagnostics.pruning import prepare_tree
 from curation.diagnostics.signal import SignalK, blomberg_k
 from curation.errors import InputError, Problem
@@ -86,6 +94,7 @@ class TraitDiagnostics(BaseModel):
     pagel_lambda: LambdaFit | None = None
     blomberg: SignalK | None = None
     adequacy: AdequacyCheck | None = None
+    dominance: Dominance | None = None
     with_error: MeasurementErrorDiagnostics | None = None
     notes: list[str] = []
     sentence: str = ""
@@ -114,8 +123,19 @@ class TraitDiagnostics(BaseModel):
                     details={"notes": self.notes},
                 )
             )
+        d = self.dominance
+        if d is not None:
+            out.append(
+                Finding(
+                    code="diagnostics.dominated_by_tips" if d.tips else "diagnostics.dominated",
+                    severity=Severity.warning,
+                    subject=subject,
+                    message=_dominance_clause(self.trait, d, f"the diagnostics of {self.trait}"),
+                    details=d.model_dump(),
+                )
+            )
         a = self.adequacy
-        if a is not None and a.p_value is not None and a.p_value < _SIGNIFICANCE:
+        if a is not None and _inadequate(self) == "branch lengths":
             out.append(
                 Finding(
                     code="diagnostics.branch_lengths_inadequate",
@@ -297,9 +317,11 @@ def trait_diagnostics(
         result.status = "too_few_tips"
         result.notes.append("lambda and K need at least three species")
     if n >= 4:
-        result.adequacy = check_branch_lengths(tree, y)
+        table = contrast_table(BrownianPass(tree, edge_variances(tree)), y)
+        result.adequacy = adequacy_of(table.contrast, table.sd)
         if result.adequacy.note:
             result.notes.append(f"branch-length check: {result.adequacy.note}")
+        result.dominance = find_dominance(arrays, tree, y, table)
     if se_array is not None:
         with_error = fit_brownian(tree, y, se=se_array)
         variant = MeasurementErrorDiagnostics(brownian=with_error)
@@ -361,14 +383,103 @@ def _sentence(d: TraitDiagnostics) -> str:
             "treating species as independent is defensible for this trait, though "
             f"{se_part}"
         )
+    dominance = d.dominance
+    if dominance is not None:
+        text += "; but " + _dominance_clause(d.trait, dominance)
     a = d.adequacy
-    if a is not None and a.p_value is not None and a.p_value < _SIGNIFICANCE:
+    verdict = _inadequate(d)
+    if a is not None and verdict == "one contrast":
+        without = dominance.adequacy_without if dominance is not None else None
+        rest = (
+            f" (r = {without.correlation:.2f}, p = {without.p_value:.2g} without it)"
+            if without is not None
+            and without.p_value is not None
+            and without.correlation is not None
+            else ""
+        )
+        text += (
+            f"; the branch-length check (r = {a.correlation:.2f}) rests on the same "
+            f"contrast{rest}, so it is no reason to transform the branch lengths"
+        )
+    elif a is not None and verdict == "branch lengths":
         text += (
             "; the branch lengths do not standardise the contrasts (their absolute values "
             f"correlate with their standard deviations, r = {a.correlation:.2f}), so "
             "transform the branch lengths before using independent contrasts"
         )
     return text + "."
+
+
+def _inadequate(d: TraitDiagnostics) -> str | None:
+    """What a significant branch-length check (Garland, Harvey and Ives
+    1992) says: 'branch lengths' when it calls for a transformation, 'one
+    contrast' when it holds only with the dominant contrast in, ``None``
+    when it is not significant."""
+    a = d.adequacy
+    if a is None or a.p_value is None or a.p_value >= _SIGNIFICANCE:
+        return None
+    if d.dominance is None:
+        return "branch lengths"
+    without = d.dominance.adequacy_without
+    if without is not None and without.p_value is not None and without.p_value < _SIGNIFICANCE:
+        return "branch lengths"
+    return "one contrast"
+
+
+def _span(values: list[float]) -> str:
+    """'0.93', or '0.80 to 0.93' when the values differ at two decimals."""
+    low, high = f"{min(values):.2f}", f"{max(values):.2f}"
+    return low if low == high else f"{low} to {high}"
+
+
+def _dominance_clause(trait: str, d: Dominance, what: str = "these figures") -> str:
+    """Say which tips (or which split) one contrast rests on, what the
+    figures are without them, and what to do."""
+    rest_on = (
+        "the sum of squared standardised contrasts on which the Brownian rate, the "
+        "phylogenetic standard error and Blomberg's K rest (Blomberg, Garland and Ives 2003)"
+    )
+    if not d.tips:
+        first, second = d.sides
+        return (
+            f"one split dominates {what}: the contrast between the clades of "
+            f"{' to '.join(map(repr, first))} and {' to '.join(map(repr, second))} carries "
+            f"{d.share:.0%} of {rest_on}, so they say more about that split than about {trait} "
+            "across the tree"
+        )
+    if len(d.tips) == 2:
+        text = f"the sister tips {d.tips[0]!r} and {d.tips[1]!r} dominate {what}"
+        they, contrast, one = "they sit", "their contrast", "one of them"
+    else:
+        other = d.side_sizes[0] if d.sides[1] == d.tips else d.side_sizes[1]
+        text = f"the tip {d.tips[0]!r} dominates {what}"
+        they, one = "it sits", "it"
+        contrast = f"its contrast with its sister group of {other} tips"
+    near = bool(d.near_zero) and all(d.near_zero)
+    if near:
+        lengths = [f"{v:.3g}" for v in d.terminal_lengths]
+        same = len(lengths) > 1 and len(set(lengths)) == 1
+        shown = f"{lengths[0]} each" if same else " and ".join(lengths)
+        text += (
+            f": {they} on near-zero terminal branches ({shown}, below {d.near_zero_share:g} of "
+            f"the tree's height) and {contrast}"
+        )
+    else:
+        text += f": {contrast}"
+    text += f" carries {d.share:.0%} of {rest_on}"
+    if d.k_without:
+        text += (
+            f"; with {one} left out K = {_span(d.k_without)} and lambda = {_span(d.lambda_without)}"
+        )
+    these = "those" if len(d.tips) == 2 else "that"
+    branches = "terminal branches" if len(d.tips) == 2 else "terminal branch"
+    values = "values" if len(d.tips) == 2 else "value"
+    advice = (
+        f"lengthen {these} {branches} or check {these} {values}"
+        if near
+        else f"check {these} {values} and {branches}"
+    )
+    return text + f", so {advice} before reading K"
 
 
 def _read_species(species: pd.DataFrame | str | Path) -> pd.DataFrame:

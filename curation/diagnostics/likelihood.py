@@ -155,6 +155,8 @@ class BrownianPass:
         self.precision_sum = float(big_w[0])
         self.log_det = float(np.log(s2[1:]).sum() + np.log(big_w[free_nodes]).sum())
         self._k = k
+        self._nodes = nodes
+        self._tip_nodes = tree.tip_nodes
         self._new_parent = new_parent
         self._w = w
         self._s2 = s2
@@ -316,6 +318,20 @@ class BrownianPass:
             np.concatenate([par, pinned]),
             np.concatenate([xs, values[self._node_tip[pinned]]]),
             np.concatenate([s2, np.zeros(len(pinned))]),
+        )
+
+    def contrast_nodes(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return (parent, child) as nodes of the prepared tree for every row
+        of :meth:`contrast_parts`, in the same order; a pinned node's
+        virtual child is the tip pinned to it."""
+        children = np.arange(1, self._k)
+        par = self._new_parent[children]
+        pinned = np.flatnonzero(self._observed & (np.arange(self._k) > 0))
+        pinned = pinned[self._has_children(pinned)]
+        nodes = self._nodes
+        return (
+            np.concatenate([nodes[par], nodes[pinned]]),
+            np.concatenate([nodes[children], self._tip_nodes[self._node_tip[pinned]]]),
         )
 
     def _has_children(self, nodes: np.ndarray) -> np.ndarray:

@@ -14,6 +14,7 @@ from curation.trees.edits import (
 from curation.trees.matrix import check_covariance, covariance_matrix, covariance_report
 from curation.trees.nodes import NodeNames, name_nodes
 from curation.trees.repairs import (
+    RepairReport,
     collapse_short_branches,
     lengthen_zero_tips,
     make_ultrametric,
@@ -23,6 +24,7 @@ from curation.trees.repairs import (
 )
 
 __all__ = [
+    "RepairReport",
     "NodeNames",
     "TreeArrays",
     "TreeCheckReport",

@@ -7,6 +7,11 @@ matrix unless asked (``matrix=True``, see :mod:`curation.trees.matrix`).
 Nodes are named stably by two tips and a tip count
 (:mod:`curation.trees.nodes`), so a finding survives reordering and re-reading.
 
+A branch is *near zero* when it is shorter than a share of the tree's
+height (:data:`DEFAULT_NEAR_ZERO`, see :func:`near_zero_branches`); the
+zero-length findings and the repair that lengthens zero-length tips use
+that one rule, and exact zeros are always caught.
+
 Finding codes:
 
 ==============================  ========  ==========================================
@@ -15,8 +20,8 @@ code                            severity  what
 tree.polytomy                   warning   an internal node with more than two children
 tree.basal_trifurcation         warning   three children at the root of a tree meant to be rooted
 tree.single_child_node          warning   an internal node with one child
-tree.zero_length_terminal       warning   a tip's branch of length 0
-tree.zero_length_internal       info      an internal branch of length 0
+tree.zero_length_terminal       warning   a tip's branch of length 0, or near zero
+tree.zero_length_internal       info      an internal branch of length 0, or near zero
 tree.negative_length            error     a branch length below 0
 tree.no_branch_lengths          error     no branch has a length
 tree.missing_branch_lengths     error     some branches have a length and some do not
@@ -48,21 +53,47 @@ from curation.trees.nodes import NodeNames, name_nodes
 from curation.trees.stored import get_tree_set, load_tree, load_tree_set
 
 __all__ = [
+    "DEFAULT_NEAR_ZERO",
     "DEFAULT_OUTLIER_THRESHOLD",
     "DEFAULT_TOLERANCE",
     "FINDING_PHRASES",
+    "ROUNDING_SPREAD_LIMIT",
     "TreeCheckReport",
     "UltrametricReport",
     "check_tree",
     "check_trees",
     "measure_ultrametricity",
+    "near_zero_branches",
+    "near_zero_cutoff",
     "tree_findings",
+    "ultrametric_explanation",
     "validate_check_options",
+    "validate_near_zero",
 ]
 
 DEFAULT_TOLERANCE = 1e-6
 """Largest spread of root-to-tip distances, relative to the tree height,
 still taken as ultrametric."""
+
+DEFAULT_NEAR_ZERO = 1e-5
+"""Share of a tree's height below which a branch is too short to be real
+(near zero). One hundred-thousandth of the height is 400 years on a tree
+40 million years deep and 1,500 years at 150 million: younger than any
+split between species that a dated tree resolves; on a tree in
+substitutions per site of height 0.3 it is 3e-6, under one substitution
+in any alignment shorter than 300,000 sites. So a branch below it is a
+placeholder for zero or a rounding remnant, not an estimate (our
+reasoning; no published convention exists)."""
+
+ROUNDING_SPREAD_LIMIT = 0.01
+"""Largest spread of root-to-tip distances, as a share of the height, that
+rounding of the written lengths may explain whatever their decimals.
+Lengths written to three significant digits are each off by at most 0.5%
+of themselves, so every root-to-tip path is off by at most 0.5% of its
+length, and two tips by at most 1% of the height (our reasoning); a wider
+spread is substantive even when so few decimals were written that each
+path's rounding allowance could cover it (``((A:10,B:10):5,(C:7,D:7):6);``
+spreads 2 on a height of 15)."""
 
 DEFAULT_OUTLIER_THRESHOLD = 3.5
 """Modified z-score above which a branch length is an extreme outlier; 3.5
@@ -96,7 +127,51 @@ _QUOTE_NEEDED = re.compile(r"[\s(),:;'\[\]]")
 _MINIMUM_LOG_MAD = 0.2
 
 
-def validate_check_options(tolerance: float, outlier_threshold: float) -> None:
+def _near_zero_problem(near_zero: float) -> str | None:
+    if np.isfinite(near_zero) and 0 <= near_zero < 1:
+        return None
+    return (
+        f"the near-zero share {near_zero!r} is not a number from 0 up to (not including) 1 "
+        "(--near-zero: branches shorter than this share of the tree's height count as zero "
+        f"length, e.g. {DEFAULT_NEAR_ZERO}; 0 catches exact zeros only)"
+    )
+
+
+def validate_near_zero(near_zero: float) -> None:
+    """Raise :class:`InputError` unless ``near_zero`` is a share of the
+    height in [0, 1)."""
+    problem = _near_zero_problem(near_zero)
+    if problem:
+        raise InputError(
+            problem, field="near zero", hint=f"give a share such as {DEFAULT_NEAR_ZERO}, or 0"
+        )
+
+
+def near_zero_cutoff(height: float, near_zero: float = DEFAULT_NEAR_ZERO) -> float:
+    """Return the length below which a branch of a tree of ``height`` is
+    near zero: ``near_zero * height`` (0 for a tree of height 0)."""
+    return float(near_zero) * max(float(height), 0.0)
+
+
+def near_zero_branches(
+    lengths: np.ndarray, height: float, near_zero: float = DEFAULT_NEAR_ZERO
+) -> np.ndarray:
+    """Return the mask of branches that are zero or near zero: length exactly
+    0, or at least 0 and shorter than ``near_zero`` times the tree's
+    ``height`` (its largest root-to-tip distance). Negative and missing
+    lengths are not in the mask (they are findings of their own).
+
+    This is the one rule behind the zero-length findings and
+    :func:`~curation.trees.edits.zero_tips_lengthened`.
+    """
+    lengths = np.asarray(lengths, dtype=np.float64)
+    cutoff = near_zero_cutoff(height, near_zero)
+    return (lengths == 0) | ((lengths >= 0) & (lengths < cutoff))
+
+
+def validate_check_options(
+    tolerance: float, outlier_threshold: float, near_zero: float = DEFAULT_NEAR_ZERO
+) -> None:
     """Raise :class:`InputError` listing every unusable check option."""
     problems: list[str] = []
     if not np.isfinite(tolerance) or tolerance < 0:
@@ -110,19 +185,31 @@ def validate_check_options(tolerance: float, outlier_threshold: float) -> None:
             f"the outlier threshold {outlier_threshold!r} is not a number > 0 "
             f"(--outlier-threshold, e.g. {DEFAULT_OUTLIER_THRESHOLD})"
         )
+    near = _near_zero_problem(near_zero)
+    if near:
+        problems.append(near)
     if problems:
+        first = problems[0]
         raise InputError(
             "; ".join(problems),
-            field="tolerance" if "tolerance" in problems[0] else "outlier threshold",
-            hint="give a tolerance >= 0 and an outlier threshold > 0",
+            field="tolerance"
+            if first.startswith("the tolerance")
+            else "outlier threshold"
+            if first.startswith("the outlier")
+            else "near zero",
+            hint="give a tolerance >= 0, an outlier threshold > 0 and a near-zero share "
+            "from 0 up to 1",
         )
 
 
 UltrametricReport = dict[str, Any]
 """The measures behind the ultrametric check, kept in the finding's details:
-tips, height, spread, relative_spread, rounding_allowance, verdict
-('ultrametric', 'rounding-level' or 'substantive'), deepest_tip and
-shallowest_tip."""
+tips, height, spread, relative_spread, rounding_allowance,
+rounding_spread_limit, verdict ('ultrametric', 'rounding-level' or
+'substantive'), reason (for a substantive verdict: 'decimals' when the
+written decimals cannot explain the spread, 'share' when they could but
+the spread is above :data:`ROUNDING_SPREAD_LIMIT` of the height; '' else),
+deepest_tip and shallowest_tip."""
 
 
 def _written_half_units(tree: TreeArrays) -> np.ndarray:
@@ -149,10 +236,16 @@ def measure_ultrametricity(tree: TreeArrays, depths: np.ndarray | None = None) -
     """Measure how far ``tree`` is from ultrametric.
 
     The spread is the largest minus the smallest root-to-tip distance; the
-    height is the largest. The deviation is *rounding-level* when one common
-    height lies within every tip's rounding allowance (the sum along its
-    path of half a unit of the last decimal written for each length), that
-    is when ``max(d - e) <= min(d + e)``; otherwise it is *substantive*.
+    height is the largest. The deviation is *rounding-level* when both
+
+    - one common height lies within every tip's rounding allowance (the sum
+      along its path of half a unit of the last decimal written for each
+      length), that is ``max(d - e) <= min(d + e)``; and
+    - the spread is at most :data:`ROUNDING_SPREAD_LIMIT` (1%) of the
+      height, so that lengths written with very few decimals (whole
+      numbers) cannot pass a real deviation off as rounding;
+
+    otherwise it is *substantive*.
 
     Returns:
         :class:`UltrametricReport` (verdict 'ultrametric' when the spread is 0).
@@ -172,9 +265,10 @@ def measure_ultrametricity(tree: TreeArrays, depths: np.ndarray | None = None) -
         relative_spread=relative,
         deepest_tip=tree.labels[int(tips[np.argmax(tip_depths)])] if len(tips) else "",
         shallowest_tip=tree.labels[int(tips[np.argmin(tip_depths)])] if len(tips) else "",
+        rounding_spread_limit=ROUNDING_SPREAD_LIMIT,
     )
     if spread == 0:
-        report.update(rounding_allowance=0.0, verdict="ultrametric")
+        report.update(rounding_allowance=0.0, verdict="ultrametric", reason="")
         return report
     allowance = path_sums(tree.parent, _written_half_units(tree))[tips]
     # A little slack for the float arithmetic of summing the lengths.
@@ -182,11 +276,33 @@ def measure_ultrametricity(tree: TreeArrays, depths: np.ndarray | None = None) -
     consistent = (
         float(np.max(tip_depths - allowance)) <= float(np.min(tip_depths + allowance)) + slack
     )
+    small = spread <= ROUNDING_SPREAD_LIMIT * height + slack
+    reason = "" if consistent and small else ("decimals" if not consistent else "share")
     report.update(
         rounding_allowance=float(allowance.max()),
-        verdict="rounding-level" if consistent else "substantive",
+        verdict="substantive" if reason else "rounding-level",
+        reason=reason,
     )
     return report
+
+
+def ultrametric_explanation(report: UltrametricReport) -> str:
+    """Return why a deviation got its verdict, in words for a person."""
+    if report["verdict"] == "rounding-level":
+        return "within what the decimals written in the file can explain"
+    if report["verdict"] == "ultrametric":
+        return "every tip is at the same distance from the root"
+    if report.get("reason") == "share":
+        return (
+            "the lengths are written with too few decimals to tell rounding from a real "
+            "difference, but rounding does not spread the tips by more than "
+            f"{report['rounding_spread_limit']:g} of the height (fossil tips, or a tree not "
+            "scaled to time?)"
+        )
+    return (
+        "more than rounding of the written lengths explains (fossil tips, or a tree not "
+        "scaled to time?)"
+    )
 
 
 def _node_finding(
@@ -204,7 +320,13 @@ def _node_finding(
     return Finding(code=code, severity=severity, subject=subject, message=message, details=base)
 
 
-def _length_findings(tree: TreeArrays, names: NodeNames, threshold: float) -> list[Finding]:
+def _length_findings(
+    tree: TreeArrays,
+    names: NodeNames,
+    threshold: float,
+    near_zero: float = DEFAULT_NEAR_ZERO,
+    depths: np.ndarray | None = None,
+) -> list[Finding]:
     findings: list[Finding] = []
     lengths = tree.edge_length
     n = tree.node_count
@@ -248,25 +370,45 @@ def _length_findings(tree: TreeArrays, names: NodeNames, threshold: float) -> li
                 length=float(lengths[node]),
             )
         )
-    zero = (lengths == 0) & non_root
+    if depths is None:
+        depths = tree.depths()
+    height = float(depths[tree.tips].max()) if n > 1 else 0.0
+    cutoff = near_zero_cutoff(height, near_zero)
+    zero = near_zero_branches(lengths, height, near_zero) & non_root
+
+    def how_short(node: int) -> tuple[str, dict[str, Any]]:
+        length = float(lengths[node])
+        details = {"length": length, "near_zero": near_zero, "cutoff": cutoff, "height": height}
+        if length == 0:
+            return "has length 0", details
+        return (
+            f"is {length:.3g} long, shorter than {near_zero:g} of the tree's height "
+            f"{height:.6g} ({cutoff:.3g}): too short to be real",
+            details,
+        )
+
     for node in np.flatnonzero(zero & is_tip):
+        words, details = how_short(int(node))
         findings.append(
             _node_finding(
                 "tree.zero_length_terminal",
                 Severity.warning,
                 names,
                 int(node),
-                f"the terminal branch of {tree.labels[node]!r} has length 0",
+                f"the terminal branch of {tree.labels[node]!r} {words}",
+                **details,
             )
         )
     for node in np.flatnonzero(zero & ~is_tip):
+        words, details = how_short(int(node))
         findings.append(
             _node_finding(
                 "tree.zero_length_internal",
                 Severity.info,
                 names,
                 int(node),
-                f"the internal branch above {names.subject(int(node))} has length 0",
+                f"the internal branch above {names.subject(int(node))} {words}",
+                **details,
             )
         )
     findings.extend(_outlier_findings(tree, names, threshold))
@@ -405,6 +547,7 @@ def check_tree(
     *,
     tolerance: float = DEFAULT_TOLERANCE,
     outlier_threshold: float = DEFAULT_OUTLIER_THRESHOLD,
+    near_zero: float = DEFAULT_NEAR_ZERO,
     expect_rooted: bool | None = None,
     matrix: bool = False,
     memory_limit_bytes: int | None = None,
@@ -416,6 +559,9 @@ def check_tree(
             tree's height, still taken as ultrametric (>= 0).
         outlier_threshold: modified z-score of a log branch length above
             which the branch is an extreme outlier (> 0).
+        near_zero: share of the tree's height below which a branch counts
+            as zero length (0 <= share < 1; 0: exact zeros only; see
+            :func:`near_zero_branches`).
         expect_rooted: whether the tree is meant to be rooted; ``None``
             takes the file's [&R]/[&U] and, when the file is silent, rooted
             (comparative methods need a rooted tree).
@@ -427,28 +573,25 @@ def check_tree(
         Findings in a stable order: shape, lengths, ultrametricity, labels.
 
     Raises:
-        InputError: a negative tolerance or a non-positive outlier threshold;
-            with ``matrix``, a matrix above the memory limit.
+        InputError: a negative tolerance, a non-positive outlier threshold or
+            a near-zero share outside [0, 1); with ``matrix``, a matrix above
+            the memory limit.
     """
-    validate_check_options(tolerance, outlier_threshold)
+    validate_check_options(tolerance, outlier_threshold, near_zero)
     names = name_nodes(tree)
     meant_rooted = expect_rooted if expect_rooted is not None else tree.rooted is not False
     findings = _shape_findings(tree, names, meant_rooted)
-    length_findings = _length_findings(tree, names, outlier_threshold)
+    depths = tree.depths()
+    length_findings = _length_findings(tree, names, outlier_threshold, near_zero, depths)
     findings.extend(length_findings)
     lengths_usable = not any(
         f.code in ("tree.no_branch_lengths", "tree.missing_branch_lengths") for f in length_findings
     )
     if lengths_usable and len(tree.tips) > 1:
-        report = measure_ultrametricity(tree)
+        report = measure_ultrametricity(tree, depths)
         if report["relative_spread"] > tolerance:
             verdict = report["verdict"]
-            why = (
-                "within what the decimals written in the file can explain"
-                if verdict == "rounding-level"
-                else "more than rounding of the written lengths explains (fossil tips, or a "
-                "tree not scaled to time?)"
-            )
+            why = ultrametric_explanation(report)
             findings.append(
                 Finding(
                     code="tree.not_ultrametric",
@@ -568,6 +711,7 @@ def check_trees(
     tree_id: int | None = None,
     tolerance: float = DEFAULT_TOLERANCE,
     outlier_threshold: float = DEFAULT_OUTLIER_THRESHOLD,
+    near_zero: float = DEFAULT_NEAR_ZERO,
     expect_rooted: bool | None = None,
     matrix: bool = False,
     memory_limit_bytes: int | None = None,
@@ -584,10 +728,11 @@ def check_trees(
     Raises:
         NotFoundError: no such tree set or tree (nothing is stored).
         InputError: a negative tolerance, a non-positive outlier threshold,
-            neither or both of ``tree_set_id`` and ``tree_id``; with
-            ``matrix``, a matrix above the memory limit (nothing is stored).
+            a near-zero share outside [0, 1), neither or both of
+            ``tree_set_id`` and ``tree_id``; with ``matrix``, a matrix above
+            the memory limit (nothing is stored).
     """
-    validate_check_options(tolerance, outlier_threshold)
+    validate_check_options(tolerance, outlier_threshold, near_zero)
     if (tree_set_id is None) == (tree_id is None):
         raise InputError(
             "give either a tree set or one tree to check",
@@ -613,6 +758,7 @@ def check_trees(
                     arrays,
                     tolerance=tolerance,
                     outlier_threshold=outlier_threshold,
+                    near_zero=near_zero,
                     expect_rooted=expect_rooted if expect_rooted is not None else tree.rooted,
                     matrix=matrix,
                     memory_limit_bytes=memory_limit_bytes,
@@ -634,6 +780,7 @@ def check_trees(
                 "tree_id": tree_id,
                 "tolerance": tolerance,
                 "outlier_threshold": outlier_threshold,
+                "near_zero": near_zero,
                 "expect_rooted": expect_rooted,
                 "matrix": matrix,
                 "memory_limit_bytes": memory_limit_bytes,

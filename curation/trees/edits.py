@@ -18,10 +18,19 @@ import numpy as np
 
 from curation.errors import ConflictError, InputError, Problem, check_choice
 from curation.trees.arrays import TreeArrays, path_sums
-from curation.trees.checks import DEFAULT_TOLERANCE, measure_ultrametricity
+from curation.trees.checks import (
+    DEFAULT_NEAR_ZERO,
+    DEFAULT_TOLERANCE,
+    measure_ultrametricity,
+    near_zero_branches,
+    near_zero_cutoff,
+    ultrametric_explanation,
+    validate_near_zero,
+)
 from curation.trees.nodes import name_nodes
 
 __all__ = [
+    "DEFAULT_TIP_LENGTH_SHARE",
     "ULTRAMETRIC_METHODS",
     "UltrametricMethod",
     "children_sorted",
@@ -35,6 +44,14 @@ __all__ = [
 #: How :func:`made_ultrametric` makes a tree ultrametric.
 UltrametricMethod = Literal["extend", "least_squares"]
 ULTRAMETRIC_METHODS: tuple[str, ...] = get_args(UltrametricMethod)
+
+DEFAULT_TIP_LENGTH_SHARE = 1e-3
+"""Length given to a near-zero terminal branch when none is named, as a
+share of the tree's height: a hundred times the near-zero cut-off
+(:data:`~curation.trees.checks.DEFAULT_NEAR_ZERO`), so the branch is
+plainly real-sized to the checks and no longer dominates a sister
+contrast, yet short (40,000 years on a tree 40 million years deep), so
+the tree changes little (our reasoning)."""
 
 
 def _contract(tree: TreeArrays, remove: np.ndarray) -> TreeArrays:
@@ -292,7 +309,8 @@ def made_ultrametric(
 
     Raises:
         ConflictError: the deviation is substantive (more than the written
-            decimals explain, see :func:`~curation.trees.checks.measure_ultrametricity`)
+            decimals explain, or more than 1% of the height whatever the
+            decimals, see :func:`~curation.trees.checks.measure_ultrametricity`)
             and ``force`` is false; the least-squares fit needs a negative
             branch.
         InputError: an unknown method, a negative tolerance, or missing
@@ -316,8 +334,9 @@ def made_ultrametric(
     if report["verdict"] == "substantive" and not force:
         raise ConflictError(
             f"the tree's root-to-tip distances spread by {report['spread']:.6g} "
-            f"({report['relative_spread']:.3g} of its height), more than rounding of the written "
-            "lengths explains; making it ultrametric would change it substantively",
+            f"({report['relative_spread']:.3g} of its height), "
+            f"{ultrametric_explanation(report)}; making it ultrametric would change it "
+            "substantively",
             field="tree",
             hint="check whether the tree is meant to be time-scaled (fossil tips?); "
             "use --force to make it ultrametric anyway",
@@ -384,26 +403,90 @@ def _least_squares_ultrametric(tree: TreeArrays) -> TreeArrays:
     )
 
 
-def zero_tips_lengthened(tree: TreeArrays, length: float) -> TreeArrays:
-    """Return ``tree`` with every terminal branch of length exactly 0 given
-    ``length`` instead (other branches unchanged).
+def zero_tips_lengthened(
+    tree: TreeArrays,
+    length: float | None = None,
+    *,
+    near_zero: float = DEFAULT_NEAR_ZERO,
+    keep_depths: bool = True,
+) -> TreeArrays:
+    """Return ``tree`` with every zero or near-zero terminal branch (see
+    :func:`~curation.trees.checks.near_zero_branches`) made ``length`` long;
+    other tips are left as they are. Without ``length`` it is
+    :data:`DEFAULT_TIP_LENGTH_SHARE` of the tree's height. A tree without
+    such a branch is returned as it is.
+
+    With ``keep_depths`` (the default) every root-to-tip distance is kept,
+    so an ultrametric tree stays ultrametric: the parent of the short tips
+    moves towards the root by the length they need (its own branch gives
+    it, every child branch of the parent takes it). Where the parent's
+    branch cannot give it without becoming near zero itself (or the
+    parent is the root), the tip's branch is lengthened alone and the tip
+    ends further from the root. Without ``keep_depths`` every short tip
+    is lengthened alone.
 
     Raises:
-        InputError: ``length`` is not a number > 0.
+        InputError: ``length`` is not a number > 0, or is itself near zero
+            for this tree (below the near-zero cut-off); ``near_zero`` is
+            not a share in [0, 1); the tree has height 0 and no ``length``
+            is given.
     """
-    if not np.isfinite(length) or length <= 0:
+    if length is not None and (not np.isfinite(length) or length <= 0):
         raise InputError(
             f"the new length {length!r} is not a number > 0",
             field="length",
-            hint="give --length as a small positive branch length, e.g. 1e-6",
+            hint="give --length as a branch length in the tree's units, e.g. 0.01",
         )
-    lengths = tree.edge_length.copy()
-    zero = tree.is_tip & (lengths == 0)
-    zero[0] = False if tree.node_count > 1 else zero[0]
-    lengths[zero] = length
+    validate_near_zero(near_zero)
+    n = tree.node_count
+    if n <= 1:
+        return tree
+    lengths = tree.edge_length
+    height = float(tree.depths()[tree.tips].max())
+    cutoff = near_zero_cutoff(height, near_zero)
+    target = DEFAULT_TIP_LENGTH_SHARE * height if length is None else float(length)
+    if target <= 0:
+        raise InputError(
+            "the tree has height 0, so a length relative to its height is 0",
+            field="length",
+            hint="give --length as a branch length in the tree's units",
+        )
+    if target < cutoff:
+        raise InputError(
+            f"the new length {target:.3g} is itself near zero for this tree: shorter than "
+            f"{near_zero:g} of its height {height:.6g} ({cutoff:.3g})",
+            field="length",
+            hint="give a longer --length, or a smaller --near-zero share",
+        )
+    short = tree.is_tip & near_zero_branches(lengths, height, near_zero) & (lengths < target)
+    short[0] = False
+    if not short.any():
+        return tree
+    parent = tree.parent
+    new = lengths.copy()
+    shortened = np.flatnonzero(short)
+    if keep_depths:
+        # What each parent must give: the most any of its short tips needs.
+        give = np.zeros(n)
+        np.maximum.at(give, parent[shortened], target - lengths[shortened])
+        left = lengths - give
+        movable = (
+            (np.arange(n) > 0)
+            & (give > 0)
+            & (left > 0)
+            & ~near_zero_branches(left, height, near_zero)
+        )
+        new = np.where(movable, left, new)
+        shift = np.zeros(n)
+        shift[1:] = np.where(movable[parent[1:]], give[parent[1:]], 0.0)
+        new = new + shift
+        alone = shortened[~movable[parent[shortened]]]
+    else:
+        alone = shortened
+    new[alone] = target
     return TreeArrays(
-        parent=tree.parent.copy(),
-        edge_length=lengths,
+        parent=parent.copy(),
+        edge_length=new,
         labels=list(tree.labels),
         rooted=tree.rooted,
         comments=dict(tree.comments),
