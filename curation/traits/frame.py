@@ -8,11 +8,12 @@ stores the same flags as findings for the record.
 
 A measurement counts for species values (``excluded`` is False) when it is
 matched to a tip by an accepted decision (of the tree set's lineage, see
-:mod:`curation.store.lineage`) that the tree set holds, has a usable value (a number in a
-convertible unit, or a known state) and carries no flag of
-:data:`curation.traits.faults.EXCLUDING` (nor an exact duplicate of a row
-naming its specimen) — unless a curator's latest review includes or
-excludes it, which wins either way.
+:mod:`curation.store.lineage`) that the tree set holds, has a usable value
+(a number in a convertible unit, or a known state) and carries no flag
+that excludes it (:func:`curation.traits.faults.excluding_kind`, by each
+kind's ``excludes`` in :data:`curation.traits.faults.FAULT_TABLE`) —
+unless a curator's latest review includes or excludes it, which wins
+either way.
 """
 
 from __future__ import annotations
@@ -29,7 +30,7 @@ from curation.store.frames import select_frame
 from curation.store.lineage import get_tree_set, set_tip_labels
 from curation.store.models import Measurement, MeasurementReview, TraitSource
 from curation.traits.definitions import normalise_state, trait_definitions
-from curation.traits.faults import EXCLUDING, FAULT_KINDS, FaultOptions, find_faults
+from curation.traits.faults import FAULT_KINDS, FaultOptions, excluding_kind, find_faults
 from curation.traits.units import convert_values
 
 __all__ = [
@@ -177,16 +178,8 @@ def prepare_frame(
     frame["genus_code"] = genus_codes[codes] if len(groups) else codes
     flags = find_faults(frame, options)
     frame = frame.join(flags)
-    named = frame["specimen_id"].notna() & frame["institution"].notna()
-    bad = np.zeros(len(frame), dtype=bool)
-    reason = np.full(len(frame), "", dtype=object)
-    for kind in reversed((*EXCLUDING, "exact_duplicate")):  # first kind named wins
-        # A specimen seen in another source leaves only when it repeats a trait.
-        hit = frame["repeated_value" if kind == "duplicate_specimen" else kind].to_numpy()
-        if kind == "exact_duplicate":
-            hit = hit & named.to_numpy()
-        bad |= hit
-        reason = np.where(hit, kind, reason)
+    reason = excluding_kind(frame)
+    bad = reason != ""
     continuous = frame["kind"] == "continuous"
     no_value = np.where(continuous, ~frame["number_ok"], frame["state"].isna())
     reason = np.where(

@@ -1,5 +1,8 @@
 """Storing fault flags as findings, and a curator's exclusions and
-re-inclusions of measurements."""
+re-inclusions of measurements.
+
+What a finding says, and how severe it is, is each kind's row of
+:data:`curation.traits.faults.FAULT_TABLE`; this module only renders it."""
 
 from __future__ import annotations
 
@@ -8,12 +11,12 @@ from pydantic import BaseModel
 from sqlalchemy import select
 
 from curation.errors import InputError, NotFoundError
-from curation.findings import Finding, Severity
+from curation.findings import Finding
 from curation.store.engine import Store
 from curation.store.ledger import current_user, record_event, record_findings
 from curation.store.models import Measurement, MeasurementReview
 from curation.timestamps import now
-from curation.traits.faults import FAULT_KINDS, SPECIES_KINDS, FaultOptions
+from curation.traits.faults import FAULT_KINDS, FAULT_TABLE, FaultKind, FaultOptions
 from curation.traits.frame import measurements_frame
 
 __all__ = [
@@ -24,25 +27,6 @@ __all__ = [
     "flag_measurements",
     "include_measurements",
 ]
-
-_MESSAGES = {
-    "unknown_unit": "unit {unit!r} is not a unit pint knows; the value stays unconverted",
-    "incompatible_unit": "unit {unit!r} cannot be converted to {target!r}",
-    "no_unit": "no unit is written, and the trait is measured in {target!r}",
-    "impossible": "{value_written!r} {unit} is impossible for a trait on the {scale} scale",
-    "out_of_range": "{value:.6g} {target} is outside the allowed range {minimum:g} to {maximum:g}",
-    "unit_slip": "{value:.6g} {target} is about {slip_factor:g} times off the species median",
-    "outlier": "{value:.6g} {target} is an outlier within its species (robust z {robust_z:.1f})",
-    "duplicate_specimen": "specimen {institution} {specimen_id} is measured again (kept once)",
-    "exact_duplicate": "row {row_number} repeats an earlier row of the same source",
-    "unknown_state": "{value_written!r} is not a defined state of {trait!r}",
-}
-_SPECIES_MESSAGES = {
-    "state_conflict": "the measurements of {tip} disagree on the state of {trait}",
-    "far_from_genus": "{tip} lies far from the other species of its genus for {trait}",
-    "source_conflict": "sources disagree on {trait} of {tip} (ratio of means above {ratio:g})",
-}
-_SEVERITY = {"duplicate_specimen": Severity.warning, "exact_duplicate": Severity.info}
 
 
 class FaultReport(BaseModel):
@@ -66,53 +50,63 @@ class ReviewResult(BaseModel):
 
 
 def fault_findings(frame: pd.DataFrame, options: FaultOptions | None = None) -> list[Finding]:
-    """Return one finding per flagged measurement and kind, and one per
-    species, trait and species-level kind, from a measurements frame."""
+    """Return the findings of a measurements frame's flags, as
+    :data:`~curation.traits.faults.FAULT_TABLE` words them: one per flagged
+    measurement and kind, then one per species, trait and species-level
+    kind, in table order."""
     options = options or FaultOptions()
     findings: list[Finding] = []
-    for kind in FAULT_KINDS:
-        if kind in SPECIES_KINDS:
-            continue
-        hit = frame[frame[kind]]
-        for row in hit.to_dict("records"):  # flagged rows only, a small share
-            code = row["unit_problem"] if kind == "unconverted" else kind
-            fields = {k: ("" if v is None else v) for k, v in row.items()}
-            for key in ("value", "minimum", "maximum", "slip_factor", "robust_z"):
-                if fields[key] == "" or pd.isna(fields[key]):
-                    fields[key] = float("nan")
-            findings.append(
-                Finding(
-                    code=f"trait.{code}",
-                    severity=_SEVERITY.get(kind, Severity.error),
-                    subject=f"measurement {row['id']}",
-                    message=_MESSAGES[code].format(**fields),
-                    details={
-                        "measurement_id": int(row["id"]),
-                        "trait": row["trait"],
-                        "tip_label": row["tip_label"],
-                        "written_name": row["written_name"],
-                        "trait_source_id": int(row["trait_source_id"]),
-                        "row_number": int(row["row_number"]),
-                        "excluded": bool(row["excluded"]),
-                    },
-                )
-            )
-    for kind in SPECIES_KINDS:
-        hit = frame[frame[kind]]
-        key = hit["tip_label"].fillna("name:" + hit["written_name"].astype(str))
-        for (tip, trait), ids in hit.groupby([key, hit["trait"]], sort=True)["id"]:
-            findings.append(
-                Finding(
-                    code=f"trait.{kind}",
-                    severity=Severity.warning,
-                    subject=f"{tip} / {trait}",
-                    message=_SPECIES_MESSAGES[kind].format(
-                        tip=tip, trait=trait, ratio=options.conflict_ratio
-                    ),
-                    details={"tip_label": tip, "trait": trait, "measurement_ids": ids.tolist()},
-                )
-            )
+    for kind in FAULT_TABLE:
+        if kind.level == "measurement":
+            findings.extend(_measurement_findings(frame, kind))
+    for kind in FAULT_TABLE:
+        if kind.level == "species":
+            findings.extend(_species_findings(frame, kind, options))
     return findings
+
+
+def _measurement_findings(frame: pd.DataFrame, kind: FaultKind) -> list[Finding]:
+    findings = []
+    for row in frame[frame[kind.name]].to_dict("records"):  # flagged rows only, a small share
+        code, template = kind.template(row)
+        fields = {k: ("" if v is None else v) for k, v in row.items()}
+        for key in ("value", "minimum", "maximum", "slip_factor", "robust_z"):
+            if fields[key] == "" or pd.isna(fields[key]):
+                fields[key] = float("nan")
+        findings.append(
+            Finding(
+                code=f"trait.{code}",
+                severity=kind.severity,
+                subject=f"measurement {row['id']}",
+                message=template.format(**fields),
+                details={
+                    "measurement_id": int(row["id"]),
+                    "trait": row["trait"],
+                    "tip_label": row["tip_label"],
+                    "written_name": row["written_name"],
+                    "trait_source_id": int(row["trait_source_id"]),
+                    "row_number": int(row["row_number"]),
+                    "excluded": bool(row["excluded"]),
+                },
+            )
+        )
+    return findings
+
+
+def _species_findings(frame: pd.DataFrame, kind: FaultKind, options: FaultOptions) -> list[Finding]:
+    hit = frame[frame[kind.name]]
+    key = hit["tip_label"].fillna("name:" + hit["written_name"].astype(str))
+    _, template = kind.template({})
+    return [
+        Finding(
+            code=f"trait.{kind.name}",
+            severity=kind.severity,
+            subject=f"{tip} / {trait}",
+            message=template.format(tip=tip, trait=trait, **options.model_dump()),
+            details={"tip_label": tip, "trait": trait, "measurement_ids": ids.tolist()},
+        )
+        for (tip, trait), ids in hit.groupby([key, hit["trait"]], sort=True)["id"]
+    ]
 
 
 def flag_measurements(
