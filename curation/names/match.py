@@ -44,6 +44,9 @@ changes automatically under the stage's other rules.
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
+from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -68,17 +71,6 @@ __all__ = [
     "match_names",
 ]
 
-STAGES = [
-    "exact",
-    "canonical",
-    "synonym",
-    "gender",
-    "spelling",
-    "fuzzy",
-    "genus",
-    "unmatched",
-    "unparseable",
-]
 MATCH_COLUMNS = [
     "written_name",
     "canonical",
@@ -92,9 +84,6 @@ MATCH_COLUMNS = [
     "candidates",
     "reason",
 ]
-# Stages that never change the genus, or explain a change by a recorded
-# synonym: their matches are not held back as a change of genus.
-GENUS_KEPT_STAGES = ("exact", "canonical", "synonym")
 GENUS_CHANGED = "genus differs from the tip's"
 # Qualifiers that make the identification itself uncertain.
 UNCERTAIN = {"cf.", "aff.", "nr.", "?", "sp. nov.", "indet."}
@@ -384,7 +373,7 @@ def _fuzzy(written: pd.DataFrame, tips: pd.DataFrame, options: MatchOptions) -> 
 # --- the matcher ---------------------------------------------------------------
 
 
-def _synonym_pairs(synonyms: pd.DataFrame | None) -> pd.DataFrame:
+def _synonym_links(synonyms: pd.DataFrame | None) -> pd.DataFrame:
     """Return (from, to) canonical pairs in both directions of a synonym
     table with columns ``synonym`` and ``accepted``."""
     if synonyms is None or synonyms.empty:
@@ -398,13 +387,430 @@ def _synonym_pairs(synonyms: pd.DataFrame | None) -> pd.DataFrame:
     return pairs.drop_duplicates().reset_index(drop=True)
 
 
+def _folded_parts(frame: pd.DataFrame, other: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Folded genus ``g`` and epithet ``e`` (with any infraspecific epithet)
+    of two parsed frames, folding the distinct values of both at once
+    (written names repeat tip names)."""
+    both = pd.concat([frame, other], ignore_index=True)
+    epithet = both["epithet"].fillna("")
+    infra = both["infraspecific"].fillna("")
+    folded_all = pd.DataFrame(
+        {
+            "g": fold_spelling(both["genus"].fillna("")).to_numpy(),
+            "e": fold_spelling((epithet + " " + infra).str.strip()).to_numpy(),
+        }
+    )
+    first = folded_all.iloc[: len(frame)].reset_index(drop=True)
+    second = folded_all.iloc[len(frame) :].reset_index(drop=True)
+    return first, second
+
+
+def _written_parts(frame: pd.DataFrame) -> pd.DataFrame:
+    """Genus ``g`` and epithet ``e`` of a parsed frame, lower-cased as written."""
+    epithet = frame["epithet"].fillna("")
+    both = (epithet + " " + frame["infraspecific"].fillna("")).str.strip()
+    return pd.DataFrame({"g": frame["genus"].fillna("").str.lower(), "e": both.str.lower()})
+
+
+@dataclass(frozen=True)
+class _Folded:
+    """The folded spellings the spelling, fuzzy and genus stages compare."""
+
+    written: pd.DataFrame  # g and e of every written name, by position
+    tips: pd.DataFrame  # g and e of the tips that have a genus, indexed by tip position
+    labels: np.ndarray  # the labels of those tips
+    has_genus: np.ndarray  # per written name: a genus was read
+
+
+@dataclass
+class _Matching:
+    """The state of one :func:`match_names` call: what every stage reads
+    (the distinct written names and tips as parsed, the synonyms, the
+    options) and what :func:`_settle` writes (``result``, one row per
+    written name, and ``open``, the names no stage has decided yet). Rows
+    are named by their position ``w`` in ``names``."""
+
+    options: MatchOptions
+    names: pd.Series
+    parsed: pd.DataFrame
+    tips: pd.DataFrame  # parsed tip labels, with the label as ``tip``
+    synonyms: pd.DataFrame | None
+    result: pd.DataFrame
+    open: np.ndarray
+
+    @cached_property
+    def uncertain(self) -> np.ndarray:
+        """The name carries a qualifier that makes it uncertain."""
+        return self.parsed["qualifiers"].map(lambda q: bool(UNCERTAIN.intersection(q))).to_numpy()
+
+    @cached_property
+    def placed_all(self) -> np.ndarray:
+        """The parser placed every word of the name."""
+        return self.parsed["leftovers"].map(len).to_numpy() == 0
+
+    @cached_property
+    def hybrid(self) -> np.ndarray:
+        return self.parsed["hybrid"].to_numpy(dtype=bool)
+
+    @cached_property
+    def written_genus(self) -> np.ndarray:
+        """Genera as the parser reads them (capitalised, without diacritics)."""
+        return self.parsed["genus"].fillna("").to_numpy(dtype=object)
+
+    @cached_property
+    def genus_of_tip(self) -> dict[str, str]:
+        return dict(zip(self.tips["tip"], self.tips["genus"].fillna(""), strict=True))
+
+    @cached_property
+    def folded(self) -> _Folded:
+        written, tips = _folded_parts(self.parsed, self.tips)
+        tips = tips[tips["g"] != ""]
+        return _Folded(
+            written=written,
+            tips=tips,
+            labels=self.tips.loc[tips.index, "tip"].to_numpy(),
+            has_genus=(written["g"] != "").to_numpy(),
+        )
+
+
+def _start(
+    written: list[str] | pd.Series,
+    tips: list[str] | pd.Series,
+    synonyms: pd.DataFrame | None,
+    options: MatchOptions,
+) -> _Matching:
+    """Parse the distinct written names (sorted) and tips; every name open,
+    unmatched until a stage decides it."""
+    names = pd.Series(pd.unique(pd.Series(list(written), dtype=object)), dtype=object)
+    names = names[names.notna()].astype(str).sort_values(kind="stable").reset_index(drop=True)
+    tip_list = pd.Series(pd.unique(pd.Series(list(tips), dtype=object)), dtype=object).astype(str)
+    parsed = parse_names(names)
+    tparsed = parse_names(tip_list)
+    tparsed["tip"] = tip_list.to_numpy()
+    n = len(names)
+    result = pd.DataFrame(
+        {
+            "written_name": names,
+            "canonical": parsed["canonical"],
+            "stage": "unmatched",
+            "status": "pending",
+            "tip_label": None,
+            "score": 0.0,
+            "runner_up": None,
+            "runner_up_score": np.nan,
+            "margin": np.nan,
+            "candidates": [[] for _ in range(n)],
+            "reason": "",
+        }
+    )
+    return _Matching(
+        options=options,
+        names=names,
+        parsed=parsed,
+        tips=tparsed,
+        synonyms=synonyms,
+        result=result,
+        open=np.ones(n, dtype=bool),
+    )
+
+
+# --- the stages: each proposes candidate pairs for the names still open ------
+
+
+def _no_pairs() -> pd.DataFrame:
+    return pd.DataFrame({"w": [], "tip": [], "score": []})
+
+
+def _pairs_by_key(
+    state: _Matching, w_keys: pd.Series, t_keys: pd.Series, score: float
+) -> pd.DataFrame:
+    """Pairs of open written names and tips whose (non-empty) keys are equal."""
+    left = pd.DataFrame({"w": np.arange(len(state.names)), "key": w_keys.to_numpy()})[state.open]
+    left = left[left["key"].astype(bool)]
+    right = pd.DataFrame({"key": t_keys.to_numpy(), "tip": state.tips["tip"].to_numpy()})
+    right = right[right["key"].astype(bool)]
+    pairs = left.merge(right, on="key")[["w", "tip"]]
+    pairs["score"] = score
+    return pairs
+
+
+def _by_exact(state: _Matching) -> pd.DataFrame:
+    """The written name is a tip label."""
+    names = state.names
+    hit = names.isin(set(state.tips["tip"])).to_numpy()
+    return pd.DataFrame({"w": np.flatnonzero(hit), "tip": names[hit].to_numpy(), "score": 100.0})
+
+
+def _by_canonical(state: _Matching) -> pd.DataFrame:
+    """Both read to the same canonical form."""
+    return _pairs_by_key(state, state.parsed["canonical"], state.tips["canonical"], 100.0)
+
+
+def _by_species_of_subspecies(state: _Matching) -> pd.DataFrame:
+    """A subspecies, variety or form whose species is a tip."""
+    parsed = state.parsed
+    has_infra = parsed["infraspecific"].notna() & ~parsed["hybrid"]
+    species = (parsed["genus"].fillna("") + " " + parsed["epithet"].fillna("")).where(has_infra, "")
+    return _pairs_by_key(state, species, state.tips["canonical"], 90.0)
+
+
+def _by_synonym(state: _Matching) -> pd.DataFrame:
+    """The name is a synonym of a tip's name, or the other way round."""
+    links = _synonym_links(state.synonyms)
+    if links.empty:
+        return _no_pairs()
+    left = pd.DataFrame(
+        {"w": np.arange(len(state.names)), "from": state.parsed["canonical"].to_numpy()}
+    )[state.open]
+    via = left.merge(links, on="from").merge(
+        state.tips[["canonical", "tip"]], left_on="to", right_on="canonical"
+    )
+    return via.assign(score=100.0)[["w", "tip", "score"]]
+
+
+def _by_gender(state: _Matching) -> pd.DataFrame:
+    """The same genus and infraspecific part, and an epithet of another
+    gender (:func:`gender_variants`)."""
+    parsed, tparsed = state.parsed, state.tips
+    binomial = parsed["epithet"].notna() & parsed["genus"].notna()
+    epithets = pd.unique(parsed.loc[binomial & pd.Series(state.open), "epithet"])
+    variants = [(e, v) for e in epithets for v in sorted(gender_variants(e))]
+    if not variants:
+        return _no_pairs()
+    var = pd.DataFrame(variants, columns=["epithet", "variant"])
+    left = pd.DataFrame(
+        {
+            "w": np.arange(len(state.names)),
+            "genus": parsed["genus"].to_numpy(),
+            "epithet": parsed["epithet"].to_numpy(),
+            "infra": parsed["infraspecific"].fillna("").to_numpy(),
+        }
+    )[state.open & binomial.to_numpy()]
+    left = left.merge(var, on="epithet")
+    right = pd.DataFrame(
+        {
+            "genus": tparsed["genus"].to_numpy(),
+            "variant": tparsed["epithet"].to_numpy(),
+            "infra": tparsed["infraspecific"].fillna("").to_numpy(),
+            "tip": tparsed["tip"].to_numpy(),
+        }
+    )
+    pairs = left.merge(right, on=["genus", "variant", "infra"])[["w", "tip"]]
+    return pairs.assign(score=95.0)
+
+
+def _by_spelling(state: _Matching) -> pd.DataFrame:
+    """Genus and epithet equal after folding spellings (:func:`fold_spelling`)."""
+    folded = state.folded
+    wf, tf = folded.written, folded.tips
+    w_key = (wf["g"] + " " + wf["e"]).where(
+        pd.Series(folded.has_genus & (wf["e"] != "").to_numpy()), ""
+    )
+    t_key = (tf["g"] + " " + tf["e"]).where(tf["e"] != "", "")
+    spelled = pd.DataFrame({"w": np.arange(len(state.names)), "key": w_key.to_numpy()})[state.open]
+    spelled = spelled[spelled["key"] != ""].merge(
+        pd.DataFrame({"key": t_key.to_numpy(), "tip": folded.labels}), on="key"
+    )
+    return spelled[["w", "tip"]].assign(score=95.0)
+
+
+def _by_fuzzy(state: _Matching) -> pd.DataFrame:
+    """Genus and epithet within a few edits (:func:`_fuzzy`), scored on the
+    folded spellings and on the letters as written; ``auto`` says a pair is
+    within the automatic edit limits."""
+    folded = state.folded
+    rows = np.flatnonzero(state.open & folded.has_genus & (folded.written["e"] != "").to_numpy())
+    if not len(rows) or not len(folded.tips):
+        return _no_pairs()
+    opts = state.options
+    scored = _fuzzy(
+        folded.written.iloc[rows].reset_index(drop=True),
+        folded.tips.reset_index(drop=True),
+        opts,
+    )
+    # Folding can make a typo cost more ("zyrvvuus" folds to "zirvus",
+    # one edit from "tirvus" but two from "zirvuvus", the name it was
+    # meant to be): every name is scored on its letters as written too,
+    # and each pair keeps its better score.
+    written = _written_parts(state.parsed).iloc[rows].reset_index(drop=True)
+    tips = _written_parts(state.tips).loc[folded.tips.index].reset_index(drop=True)
+    scored = (
+        pd.concat([scored, _fuzzy(written, tips, opts)], ignore_index=True)
+        .sort_values(["w", "t", "score"], ascending=[True, True, False], kind="stable")
+        .drop_duplicates(["w", "t"])
+    )
+    if scored.empty:
+        return _no_pairs()
+    return pd.DataFrame(
+        {
+            "w": rows[scored["w"].to_numpy(dtype=np.int64)],
+            "tip": folded.labels[scored["t"].to_numpy(dtype=np.int64)],
+            "score": scored["score"].to_numpy(),
+            "auto": scored["auto"].to_numpy(dtype=bool),
+        }
+    )
+
+
+def _by_genus(state: _Matching) -> pd.DataFrame:
+    """Only the (folded) genus matches: every tip of that genus."""
+    folded = state.folded
+    rows = np.flatnonzero(state.open & folded.has_genus)
+    if not len(rows) or not len(folded.tips):
+        return _no_pairs()
+    left = pd.DataFrame({"w": rows, "g": folded.written["g"].to_numpy()[rows]})
+    right = pd.DataFrame({"g": folded.tips["g"].to_numpy(), "tip": folded.labels})
+    pairs = left.merge(right, on="g")
+    return pairs.assign(score=50.0)[["w", "tip", "score"]]
+
+
+@dataclass(frozen=True)
+class _Stage:
+    """One stage of :func:`match_names`: the ``stage`` it records, the
+    function that proposes its pairs (w, tip, score[, auto]) for the names
+    still open, and how :func:`_settle` judges its best candidates."""
+
+    name: str
+    propose: Callable[[_Matching], pd.DataFrame]
+    #: Never changes the genus, or explains a change by a recorded synonym:
+    #: its matches are not held back as a change of genus.
+    keeps_genus: bool = False
+    #: May accept a hybrid name (only the exact and canonical forms do).
+    takes_hybrids: bool = False
+    #: Accepts only from ``MatchOptions.accept_score``.
+    needs_score: bool = False
+    #: When set, every name it reaches waits for review, for this reason.
+    hold: str = ""
+
+
+#: The stages in order; the first that reaches a name decides it.
+_STAGES = (
+    _Stage("exact", _by_exact, keeps_genus=True, takes_hybrids=True),
+    _Stage("canonical", _by_canonical, keeps_genus=True, takes_hybrids=True),
+    _Stage(
+        "canonical",
+        _by_species_of_subspecies,
+        keeps_genus=True,
+        takes_hybrids=True,
+        hold="an infraspecific name whose species is a tip",
+    ),
+    _Stage("synonym", _by_synonym, keeps_genus=True),
+    _Stage("gender", _by_gender),
+    _Stage("spelling", _by_spelling),
+    _Stage("fuzzy", _by_fuzzy, needs_score=True),
+    _Stage("genus", _by_genus, hold="only the genus matched"),
+)
+# Every stage a result may name, in order, then the two verdicts of no stage.
+STAGES = [*dict.fromkeys(stage.name for stage in _STAGES), "unmatched", "unparseable"]
+
+
+# --- settling: ranking a stage's pairs, accepting or holding each name ------
+
+
+def _settle(state: _Matching, stage: _Stage, pairs: pd.DataFrame) -> None:
+    """Record the ranked ``pairs`` of ``stage`` for the still-open names
+    and close them: accepted when one tip is clearly best and nothing holds
+    the name back (see :func:`_verdicts`), else pending with the reason."""
+    if pairs.empty:
+        return
+    pairs = pairs[state.open[pairs["w"].to_numpy()]]
+    if pairs.empty:
+        return
+    ranked = _rank(pairs, state.options.candidates)
+    idx = ranked.index.to_numpy(dtype=np.int64)
+    accept, reason = _verdicts(state, stage, pairs, ranked)
+    result = state.result
+    for column in ["tip_label", "score", "runner_up", "runner_up_score", "margin"]:
+        result.loc[idx, column] = ranked[column].to_numpy()
+    result.loc[idx, "candidates"] = pd.Series(ranked["candidates"].to_list(), index=idx)
+    result.loc[idx, "stage"] = stage.name
+    result.loc[idx, "status"] = np.where(accept, "accepted", "pending")
+    result.loc[idx, "reason"] = reason
+    state.open[idx] = False
+
+
+def _verdicts(
+    state: _Matching, stage: _Stage, pairs: pd.DataFrame, ranked: pd.DataFrame
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return, per ranked name, whether it is accepted and else why not
+    (the reason of highest precedence)."""
+    opts = state.options
+    idx = ranked.index.to_numpy(dtype=np.int64)
+    if "auto" in pairs:
+        best_auto = pairs.sort_values(["w", "score"], ascending=[True, False]).drop_duplicates("w")
+        auto_ok = best_auto.set_index("w")["auto"].reindex(ranked.index).fillna(False)
+    else:
+        auto_ok = pd.Series(True, index=ranked.index)
+    auto_ok = auto_ok.to_numpy(dtype=bool)
+    clear = (ranked["runner_up"].isna() | (ranked["margin"] >= opts.ambiguity_margin)).to_numpy()
+    tied = (ranked["runner_up"].notna() & (ranked["margin"] <= 0)).to_numpy()
+    good = (ranked["score"] >= (opts.accept_score if stage.needs_score else 0)).to_numpy()
+    best_tips = ranked["tip_label"].to_numpy(dtype=object)
+    w_genus = state.written_genus[idx]
+    if stage.keeps_genus:
+        tip_genus = np.full(len(idx), "", dtype=object)
+        changed = np.zeros(len(idx), dtype=bool)
+    else:
+        tip_genus = np.array([state.genus_of_tip.get(t, "") for t in best_tips], dtype=object)
+        changed = np.array(
+            [w.lower() != t.lower() for w, t in zip(w_genus, tip_genus, strict=True)],
+            dtype=bool,
+        )
+    uncertain, placed_all = state.uncertain[idx], state.placed_all[idx]
+    hybrid = state.hybrid[idx] & (not stage.takes_hybrids)
+    accept = (
+        clear
+        & auto_ok
+        & good
+        & (~changed | opts.accept_genus_changes)
+        & ~uncertain
+        & placed_all
+        & ~hybrid
+        & (not stage.hold)
+    )
+    reason = np.full(len(idx), "", dtype=object)
+    # Lowest in precedence: shown when nothing else holds the name back.
+    if not opts.accept_genus_changes:
+        for k in np.flatnonzero(changed).tolist():
+            reason[k] = f"{GENUS_CHANGED}: {w_genus[k]} written, {tip_genus[k]} in {best_tips[k]}"
+    reason[~good] = "score below the automatic threshold"
+    reason[~auto_ok] = "more edits than allowed automatically"
+    reason[~clear] = "runner-up too close"
+    reason[tied] = "several tips equally good"
+    reason[~placed_all] = "the name has words the parser could not place"
+    reason[uncertain] = "the name carries an uncertain qualifier"
+    reason[hybrid] = "a hybrid name is matched only by its exact or canonical form"
+    if stage.hold:
+        reason[:] = stage.hold
+    reason[accept] = ""
+    return accept, reason
+
+
+def _close(state: _Matching) -> pd.DataFrame:
+    """Say why the names no stage reached are open (unparseable, or no tip
+    came close) and return the result in :data:`MATCH_COLUMNS`."""
+    parsed, result = state.parsed, state.result
+    unparsed = ~parsed["parseable"].to_numpy() & state.open
+    result.loc[unparsed, "reason"] = "could not parse: " + parsed.loc[unparsed, "reason"]
+    result.loc[unparsed, "stage"] = "unparseable"
+    left_open = state.open & ~unparsed
+    result.loc[left_open, "reason"] = "no tip came close"
+    no_runner = result["runner_up"].isna() & (result["stage"] != "unmatched")
+    result.loc[no_runner, "margin"] = result.loc[no_runner, "score"]
+    result["score"] = result["score"].astype(float)
+    result["margin"] = result["margin"].astype(float)
+    for column in ["tip_label", "runner_up"]:
+        result[column] = result[column].astype(object).where(result[column].notna(), None)
+    return result[MATCH_COLUMNS]
+
+
 def match_names(
     written: list[str] | pd.Series,
     tips: list[str] | pd.Series,
     synonyms: pd.DataFrame | None = None,
     options: MatchOptions | None = None,
 ) -> pd.DataFrame:
-    """Match each distinct written name to the tip labels, stage by stage.
+    """Match each distinct written name to the tip labels, stage by stage
+    (:data:`_STAGES`, see the module notes).
 
     Args:
         written: written names (repeats are matched once).
@@ -421,249 +827,10 @@ def match_names(
         there is none), ``candidates`` (list of [tip, score], best first)
         and ``reason`` (why a name is pending).
     """
-    opts = options or MatchOptions()
-    names = pd.Series(pd.unique(pd.Series(list(written), dtype=object)), dtype=object)
-    names = names[names.notna()].astype(str).sort_values(kind="stable").reset_index(drop=True)
-    tip_list = pd.Series(pd.unique(pd.Series(list(tips), dtype=object)), dtype=object).astype(str)
-    parsed = parse_names(names)
-    tparsed = parse_names(tip_list)
-    tparsed["tip"] = tip_list.to_numpy()
-    n = len(names)
-
-    result = pd.DataFrame(
-        {
-            "written_name": names,
-            "canonical": parsed["canonical"],
-            "stage": "unmatched",
-            "status": "pending",
-            "tip_label": None,
-            "score": 0.0,
-            "runner_up": None,
-            "runner_up_score": np.nan,
-            "margin": np.nan,
-            "candidates": [[] for _ in range(n)],
-            "reason": "",
-        }
-    )
-    uncertain = parsed["qualifiers"].map(lambda q: bool(UNCERTAIN.intersection(q))).to_numpy()
-    placed_all = parsed["leftovers"].map(len).to_numpy() == 0
-    hybrid = parsed["hybrid"].to_numpy(dtype=bool)
-    open_ = np.ones(n, dtype=bool)
-    # Genera as the parser reads them (capitalised, without diacritics).
-    w_genus = parsed["genus"].fillna("").to_numpy(dtype=object)
-    genus_of_tip = dict(zip(tparsed["tip"], tparsed["genus"].fillna(""), strict=True))
-
-    def settle(stage: str, pairs: pd.DataFrame, hold: str = "") -> None:
-        """Record the ranked ``pairs`` (w, tip, score[, auto]) of ``stage``
-        for still-open names; accept those with one clear best tip, unless
-        ``hold`` gives a reason to leave them all for review."""
-        nonlocal open_
-        if pairs.empty:
-            return
-        pairs = pairs[open_[pairs["w"].to_numpy()]]
-        if pairs.empty:
-            return
-        ranked = _rank(pairs, opts.candidates)
-        idx = ranked.index.to_numpy(dtype=np.int64)
-        if "auto" in pairs:
-            best_auto = pairs.sort_values(["w", "score"], ascending=[True, False]).drop_duplicates(
-                "w"
-            )
-            auto_ok = best_auto.set_index("w")["auto"].reindex(ranked.index).fillna(False)
-        else:
-            auto_ok = pd.Series(True, index=ranked.index)
-        clear = ranked["runner_up"].isna() | (ranked["margin"] >= opts.ambiguity_margin)
-        tied = ranked["runner_up"].notna() & (ranked["margin"] <= 0)
-        good = ranked["score"] >= (opts.accept_score if stage == "fuzzy" else 0)
-        best_tips = ranked["tip_label"].to_numpy(dtype=object)
-        if stage in GENUS_KEPT_STAGES:
-            changed = np.zeros(len(idx), dtype=bool)
-        else:
-            tip_genus = np.array([genus_of_tip.get(t, "") for t in best_tips], dtype=object)
-            changed = np.array(
-                [w.lower() != t.lower() for w, t in zip(w_genus[idx], tip_genus, strict=True)],
-                dtype=bool,
-            )
-        accept = (
-            clear.to_numpy()
-            & auto_ok.to_numpy(dtype=bool)
-            & good.to_numpy()
-            & (~changed | opts.accept_genus_changes)
-            & ~uncertain[idx]
-            & placed_all[idx]
-            & (stage != "genus")
-            & ~(hybrid[idx] & (stage not in ("exact", "canonical")))
-            & (not hold)
-        )
-        reason = np.full(len(idx), "", dtype=object)
-        # Lowest in precedence: shown when nothing else holds the name back.
-        if not opts.accept_genus_changes:
-            for k in np.flatnonzero(changed).tolist():
-                reason[k] = (
-                    f"{GENUS_CHANGED}: {w_genus[idx[k]]} written, {tip_genus[k]} in {best_tips[k]}"
-                )
-        reason[~good.to_numpy()] = "score below the automatic threshold"
-        reason[~auto_ok.to_numpy(dtype=bool)] = "more edits than allowed automatically"
-        reason[~clear.to_numpy()] = "runner-up too close"
-        reason[tied.to_numpy()] = "several tips equally good"
-        reason[~placed_all[idx]] = "the name has words the parser could not place"
-        reason[uncertain[idx]] = "the name carries an uncertain qualifier"
-        if stage not in ("exact", "canonical"):
-            reason[hybrid[idx]] = "a hybrid name is matched only by its exact or canonical form"
-        if stage == "genus":
-            reason[:] = "only the genus matched"
-        if hold:
-            reason[:] = hold
-        reason[accept] = ""
-        for column in ["tip_label", "score", "runner_up", "runner_up_score", "margin"]:
-            result.loc[idx, column] = ranked[column].to_numpy()
-        result.loc[idx, "candidates"] = pd.Series(ranked["candidates"].to_list(), index=idx)
-        result.loc[idx, "stage"] = stage
-        result.loc[idx, "status"] = np.where(accept, "accepted", "pending")
-        result.loc[idx, "reason"] = reason
-        open_[idx] = False
-
-    def by_key(w_keys: pd.Series, t_keys: pd.Series, score: float) -> pd.DataFrame:
-        """Pairs of open written names and tips whose keys are equal."""
-        left = pd.DataFrame({"w": np.arange(n), "key": w_keys.to_numpy()})[open_]
-        left = left[left["key"].astype(bool)]
-        right = pd.DataFrame({"key": t_keys.to_numpy(), "tip": tparsed["tip"].to_numpy()})
-        right = right[right["key"].astype(bool)]
-        pairs = left.merge(right, on="key")[["w", "tip"]]
-        pairs["score"] = score
-        return pairs
-
-    # 1. exact
-    tip_set = set(tip_list)
-    hit = names.isin(tip_set).to_numpy()
-    exact = pd.DataFrame({"w": np.flatnonzero(hit), "tip": names[hit].to_numpy(), "score": 100.0})
-    settle("exact", exact)
-    # 2. canonical
-    settle("canonical", by_key(parsed["canonical"], tparsed["canonical"], 100.0))
-    # A subspecies, variety or form whose species is a tip: for review only.
-    has_infra = parsed["infraspecific"].notna() & ~parsed["hybrid"]
-    species = (parsed["genus"].fillna("") + " " + parsed["epithet"].fillna("")).where(has_infra, "")
-    settle(
-        "canonical",
-        by_key(species, tparsed["canonical"], 90.0),
-        hold="an infraspecific name whose species is a tip",
-    )
-    # 3. synonym, both directions
-    syn = _synonym_pairs(synonyms)
-    if not syn.empty:
-        left = pd.DataFrame({"w": np.arange(n), "from": parsed["canonical"].to_numpy()})[open_]
-        via = left.merge(syn, on="from").merge(
-            tparsed[["canonical", "tip"]], left_on="to", right_on="canonical"
-        )
-        settle("synonym", via.assign(score=100.0)[["w", "tip", "score"]])
-    # 4. gender variants of the epithet (same genus, same infraspecific part)
-    binomial = parsed["epithet"].notna() & parsed["genus"].notna()
-    epithets = pd.unique(parsed.loc[binomial & pd.Series(open_), "epithet"])
-    variants = [(e, v) for e in epithets for v in sorted(gender_variants(e))]
-    if variants:
-        var = pd.DataFrame(variants, columns=["epithet", "variant"])
-        left = pd.DataFrame(
-            {
-                "w": np.arange(n),
-                "genus": parsed["genus"].to_numpy(),
-                "epithet": parsed["epithet"].to_numpy(),
-                "infra": parsed["infraspecific"].fillna("").to_numpy(),
-            }
-        )[open_ & binomial.to_numpy()]
-        left = left.merge(var, on="epithet")
-        right = pd.DataFrame(
-            {
-                "genus": tparsed["genus"].to_numpy(),
-                "variant": tparsed["epithet"].to_numpy(),
-                "infra": tparsed["infraspecific"].fillna("").to_numpy(),
-                "tip": tparsed["tip"].to_numpy(),
-            }
-        )
-        pairs = left.merge(right, on=["genus", "variant", "infra"])[["w", "tip"]]
-        settle("gender", pairs.assign(score=95.0))
-
-    # 5. spelling variants; 6. fuzzy; 7. genus: on folded spellings
-    def folded(frame: pd.DataFrame, other: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
-        """Folded genus ``g`` and epithet ``e`` of two frames, folding the
-        distinct values of both at once (written names repeat tip names)."""
-        both = pd.concat([frame, other], ignore_index=True)
-        epithet = both["epithet"].fillna("")
-        infra = both["infraspecific"].fillna("")
-        folded_all = pd.DataFrame(
-            {
-                "g": fold_spelling(both["genus"].fillna("")).to_numpy(),
-                "e": fold_spelling((epithet + " " + infra).str.strip()).to_numpy(),
-            }
-        )
-        first = folded_all.iloc[: len(frame)].reset_index(drop=True)
-        second = folded_all.iloc[len(frame) :].reset_index(drop=True)
-        return first, second
-
-    def as_written(frame: pd.DataFrame) -> pd.DataFrame:
-        epithet = frame["epithet"].fillna("")
-        both = (epithet + " " + frame["infraspecific"].fillna("")).str.strip()
-        return pd.DataFrame({"g": frame["genus"].fillna("").str.lower(), "e": both.str.lower()})
-
-    wf, tf = folded(parsed, tparsed)
-    tf = tf[tf["g"] != ""]
-    w_ok = (wf["g"] != "").to_numpy()
-    w_key = (wf["g"] + " " + wf["e"]).where(pd.Series(w_ok & (wf["e"] != "").to_numpy()), "")
-    t_key = (tf["g"] + " " + tf["e"]).where(tf["e"] != "", "")
-    spelled = pd.DataFrame({"w": np.arange(n), "key": w_key.to_numpy()})[open_]
-    spelled = spelled[spelled["key"] != ""].merge(
-        pd.DataFrame({"key": t_key.to_numpy(), "tip": tparsed.loc[tf.index, "tip"].to_numpy()}),
-        on="key",
-    )
-    settle("spelling", spelled[["w", "tip"]].assign(score=95.0))
-
-    fuzzy_rows = np.flatnonzero(open_ & w_ok & (wf["e"] != "").to_numpy())
-    if len(fuzzy_rows) and len(tf):
-        tips_f = tf.reset_index(drop=True)
-        tip_labels = tparsed.loc[tf.index, "tip"].to_numpy()
-        scored = _fuzzy(wf.iloc[fuzzy_rows].reset_index(drop=True), tips_f, opts)
-        # Folding can make a typo cost more ("zyrvvuus" folds to "zirvus",
-        # one edit from "tirvus" but two from "zirvuvus", the name it was
-        # meant to be): every name is scored on its letters as written too,
-        # and each pair keeps its better score.
-        wr = as_written(parsed).iloc[fuzzy_rows].reset_index(drop=True)
-        tips_r = as_written(tparsed).loc[tf.index].reset_index(drop=True)
-        scored = (
-            pd.concat([scored, _fuzzy(wr, tips_r, opts)], ignore_index=True)
-            .sort_values(["w", "t", "score"], ascending=[True, True, False], kind="stable")
-            .drop_duplicates(["w", "t"])
-        )
-        if not scored.empty:
-            scored = pd.DataFrame(
-                {
-                    "w": fuzzy_rows[scored["w"].to_numpy(dtype=np.int64)],
-                    "tip": tip_labels[scored["t"].to_numpy(dtype=np.int64)],
-                    "score": scored["score"].to_numpy(),
-                    "auto": scored["auto"].to_numpy(dtype=bool),
-                }
-            )
-            settle("fuzzy", scored)
-
-    genus_rows = np.flatnonzero(open_ & w_ok)
-    if len(genus_rows) and len(tf):
-        left = pd.DataFrame({"w": genus_rows, "g": wf["g"].to_numpy()[genus_rows]})
-        right = pd.DataFrame(
-            {"g": tf["g"].to_numpy(), "tip": tparsed.loc[tf.index, "tip"].to_numpy()}
-        )
-        pairs = left.merge(right, on="g")
-        settle("genus", pairs.assign(score=50.0)[["w", "tip", "score"]])
-
-    unparsed = ~parsed["parseable"].to_numpy() & open_
-    result.loc[unparsed, "reason"] = "could not parse: " + parsed.loc[unparsed, "reason"]
-    result.loc[unparsed, "stage"] = "unparseable"
-    left_open = open_ & ~unparsed
-    result.loc[left_open, "reason"] = "no tip came close"
-    no_runner = result["runner_up"].isna() & (result["stage"] != "unmatched")
-    result.loc[no_runner, "margin"] = result.loc[no_runner, "score"]
-    result["score"] = result["score"].astype(float)
-    result["margin"] = result["margin"].astype(float)
-    for column in ["tip_label", "runner_up"]:
-        result[column] = result[column].astype(object).where(result[column].notna(), None)
-    return result[MATCH_COLUMNS]
+    state = _start(written, tips, synonyms, options or MatchOptions())
+    for stage in _STAGES:
+        _settle(state, stage, stage.propose(state))
+    return _close(state)
 
 
 def match_findings(result: pd.DataFrame, tips: list[str] | pd.Series) -> list[Finding]:
