@@ -39,6 +39,16 @@ exact and canonical stages never change the genus, and a synonym that moves
 a species to another genus is a recorded fact of the synonym table, so
 those stay automatic. ``MatchOptions.accept_genus_changes`` accepts genus
 changes automatically under the stage's other rules.
+
+In the code, each stage is one function (``_by_exact`` ... ``_by_genus``)
+proposing candidate pairs (the written name's position, a tip, a score)
+for the names still open, and one row of ``_STAGES`` saying how its best
+candidates are judged (whether it keeps the genus, may accept a hybrid,
+needs ``accept_score``, or holds every name it reaches for review).
+:func:`match_names` walks the rows in order; ``_settle`` ranks a stage's
+pairs, accepts or holds each name with its reason, and closes it, in the
+one ``_Matching`` state the stages share. A new stage is one function and
+one row.
 """
 
 from __future__ import annotations
