@@ -295,7 +295,9 @@ def time_tree_arrays(
     length = np.where(up >= 0, tree.height[np.maximum(up, 0)] - tree.height[nodes], np.nan)
     names = labels or {}
     text = [names.get(node, tree.labels[node]) for node in nodes.tolist()]
-    notes = {int(index[node]): [note] for node, note in (comments or {}).items()}
+    notes = {
+        int(index[node]): [note] for node, note in (comments or {}).items() if tree.alive[node]
+    }
     return to_preorder(parent, length, text, notes)
 
 
