@@ -15,13 +15,12 @@ scale: the traits stage alone (converting, flagging and aggregating the
 same measurements, which every bundle runs), and coreutils ``sha256sum -c``
 of the bundle's checksum list (the least any verification must do).
 
-Usage: python bench/bench_bundle.py [TIPS ROWS]
+Usage: python -m bench.bench_bundle [TIPS ROWS]
 """
 
 from __future__ import annotations
 
 import json
-import os
 import statistics
 import subprocess
 import sys
@@ -33,7 +32,7 @@ TIPS = 50_000
 ROWS = 1_000_000
 TRAITS = 20
 REPEATS = 3
-HERE = Path(__file__).resolve().parent
+REPO = Path(__file__).resolve().parents[1]
 
 CHILD = """
 import sys, time
@@ -68,11 +67,8 @@ def build_store(folder: Path, tips: int, rows: int) -> tuple[str, int, float]:
     """Build the benchmark store; return (url, tree id, seconds taken)."""
     from sqlalchemy import select
 
-    from curation.demo.benchmark_data import (
-        benchmark_trait_definitions,
-        generate_measurements,
-        generate_tree,
-    )
+    from curation.demo.benchmark_data import benchmark_trait_definitions, generate_measurements
+    from curation.demo.phylogeny import generate_tree
     from curation.imports.traits import import_traits
     from curation.imports.trees import import_trees
     from curation.names.decisions import reconcile_names
@@ -112,12 +108,13 @@ def build_store(folder: Path, tips: int, rows: int) -> tuple[str, int, float]:
 
 def _child(what: str, url: str, bundle: Path, tree_id: int) -> tuple[float, float]:
     """Run one step in a fresh process; return (seconds, peak RSS in MB)."""
-    env = {**os.environ, "PYTHONPATH": str(HERE.parent)}
+    # From the repository's folder, so that ``curation`` imports as the
+    # package there.
     done = subprocess.run(
         [sys.executable, "-c", CHILD, what, url, str(bundle), str(tree_id)],
         capture_output=True,
         text=True,
-        env=env,
+        cwd=REPO,
         check=False,
     )
     if done.returncode != 0:
@@ -212,7 +209,6 @@ def run(tips: int = TIPS, rows: int = ROWS) -> list[dict]:
 
 
 if __name__ == "__main__":
-    sys.path.insert(0, str(HERE.parent))
     args = [int(a) for a in sys.argv[1:3]]
     for row in run(*args):
         print(f"{row['measure']:50} {row['value']:10.2f} {row['unit']:3} {row['target']}")

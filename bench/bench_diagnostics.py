@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 from scipy import linalg
 
+from curation.demo.phylogeny import caterpillar_tree, random_tree, simulate_brownian
 from curation.diagnostics import (
     blomberg_k,
     fit_brownian,
@@ -37,7 +38,6 @@ from curation.diagnostics import (
     trait_diagnostics,
 )
 from curation.diagnostics.dense import dense_covariance, dense_lambda_covariance
-from curation.diagnostics.simulate import caterpillar_tree, random_tree, simulate_brownian
 
 LINEAR_SIZES = [1_000, 10_000, 50_000]
 DENSE_SIZES = [500, 1_000, 2_000]

@@ -6,7 +6,7 @@ Reports the median wall time of the import, the time per million rows,
 the ratio to the baseline and the peak memory of the import (tracemalloc:
 Python allocations, which include pandas' buffers).
 
-Usage: python bench/bench_imports.py [ROWS]
+Usage: python -m bench.bench_imports [ROWS]
 """
 
 from __future__ import annotations
@@ -118,6 +118,5 @@ def run(rows: int = ROWS) -> list[dict]:
 
 
 if __name__ == "__main__":
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     for row in run(int(sys.argv[1]) if len(sys.argv) > 1 else ROWS):
         print(row)

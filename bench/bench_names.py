@@ -2,13 +2,14 @@
 difflib (the baseline a user would write) and rapidfuzz's raw cdist over
 the same candidate pairs (the floor); and quality on ground truths of
 corrupted names (precision of automatic acceptances, recall per stage):
-the demo generator's benchmark names (the timed set), a harsher seeded
-corpus of our own (genus typos, double typos; ``names_corpus.py``) and the
-demo scenario itself, reconciled through the store as the demo does. Both
+the benchmark names of ``curation.demo.naming.generate_names`` (the timed
+set), a harsher mix of the same generator (``HARSH_KINDS``: genus typos,
+double typos, more species without a tip; "own corpus") and the demo
+scenario itself, reconciled through the store as the demo does. Both
 corpora are measured again with changes of genus accepted automatically
 (``MatchOptions.accept_genus_changes``; by default they wait for review).
 
-Run: python bench/run.py names   (or python bench/bench_names.py)
+Run: python bench/run.py names   (or python -m bench.bench_names)
 """
 
 from __future__ import annotations
@@ -16,25 +17,18 @@ from __future__ import annotations
 import difflib
 import resource
 import statistics
-import sys
 import tempfile
 import time
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 from rapidfuzz import process
 from rapidfuzz.distance import OSA
 
-HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE))
-sys.path.insert(0, str(HERE.parent))
-
-from names_corpus import demo_decisions, make_tips, make_written  # noqa: E402
-
-from curation.demo.benchmark_data import generate_names  # noqa: E402
-from curation.names.decisions import candidates_of  # noqa: E402
-from curation.names.match import (  # noqa: E402
+from curation.demo.naming import HARSH_KINDS, generate_names
+from curation.demo.pipeline import demo_name_decisions
+from curation.names.decisions import candidates_of
+from curation.names.match import (
     GENUS_CHANGED,
     MatchOptions,
     allowed_edits,
@@ -42,7 +36,7 @@ from curation.names.match import (  # noqa: E402
     fold_spelling,
     match_names,
 )
-from curation.names.parse import parse_name, parse_names  # noqa: E402
+from curation.names.parse import parse_name, parse_names
 
 N_TIPS = 50_000
 N_NAMES = 50_000
@@ -147,7 +141,7 @@ def demo_coverage() -> dict[str, float]:
     acceptances, and names with a true tip that are neither accepted to it
     nor pending with it among their candidates."""
     with tempfile.TemporaryDirectory() as folder:
-        truth, decided = demo_decisions(Path(folder))
+        truth, decided = demo_name_decisions(folder)
     merged = truth.merge(decided, on="written_name", how="left")
     accepted = merged["status"] == "accepted"
     right = accepted & (merged["tip_label"] == merged["true_tip"])
@@ -226,8 +220,9 @@ def run() -> list[dict]:
             "target": "",
         },
     ]
-    own_tips = make_tips(N_TIPS, seed=1)
-    own = make_written(own_tips, N_NAMES, seed=2)
+    harsh = generate_names(N_NAMES, tips=N_TIPS, seed=1, kinds=HARSH_KINDS, per_genus=10)
+    own_tips = harsh.tips
+    own = harsh.truth.assign(true_tip=harsh.truth["true_tip"].replace("", None))
     own_result = match_names(own["written_name"], own_tips)
     # The same corpora with changes of genus accepted automatically (the
     # option), to show what sending them to review costs and gains.

@@ -4,7 +4,7 @@ beside a plain pandas groupby of mean, SD and median on the same rows (the
 floor: what aggregation alone costs, with no conversion or checks).
 
 Each repeat runs in a fresh child process so that its peak resident memory
-is its own. Run: python bench/run.py traits   (or python bench/bench_traits.py)
+is its own. Run: python bench/run.py traits   (or python -m bench.bench_traits)
 """
 
 from __future__ import annotations
@@ -16,8 +16,7 @@ import sys
 import time
 from pathlib import Path
 
-HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent))
+REPO = Path(__file__).resolve().parents[1]
 
 N_ROWS = 1_000_000
 N_TRAITS = 20
@@ -92,10 +91,11 @@ def run() -> list[dict]:
     peaks = []
     for _ in range(REPEATS):
         done = subprocess.run(
-            [sys.executable, str(Path(__file__).resolve()), "--child"],
+            [sys.executable, "-m", "bench.bench_traits", "--child"],
             capture_output=True,
             text=True,
             check=True,
+            cwd=REPO,
         )
         results.append(json.loads(done.stdout.strip().splitlines()[-1]))
         peaks.append(results[-1]["peak_mb"])

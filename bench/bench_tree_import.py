@@ -1,8 +1,9 @@
 """Benchmark of reading and importing a posterior sample of trees.
 
-An invented, seeded posterior sample (NEXUS with TAXA, TRANSLATE, tree
-header comments [&lnP=...] and a branch comment [&rate=...] on every tip,
-as Bayesian samplers write them) is read by tipledger's own reader and by
+An invented, seeded posterior sample (made by ``generate_tree_set`` of
+``curation.demo.phylogeny``: NEXUS with TAXA, TRANSLATE, tree header
+comments [&lnP=...] and a branch comment [&rate=...] on every branch, as
+Bayesian samplers write them) is read by tipledger's own reader and by
 DendroPy (``TreeList.get`` with ``preserve_underscores=True``), the baseline,
 side by side. The full import into a SQLite store is timed too, and the
 reader with a burn-in and thinning.
@@ -13,7 +14,6 @@ an import of 500 trees of 200 tips well under a minute on 2 cores.
 
 from __future__ import annotations
 
-import random
 import statistics
 import tempfile
 import time
@@ -23,34 +23,6 @@ from pathlib import Path
 TREES = 500
 TIPS = 200
 REPEATS = 3
-
-
-def posterior_nexus(trees: int, tips: int, seed: int = 7) -> str:
-    """Return an invented posterior sample as NEXUS text (random topologies)."""
-    rng = random.Random(seed)
-    names = [f"Ardelia_sp{i:04d}" for i in range(tips)]
-    lines = [
-        "#NEXUS",
-        "begin taxa;",
-        f"  dimensions ntax={tips};",
-        "  taxlabels " + " ".join(names) + ";",
-        "end;",
-        "begin trees;",
-        "  translate",
-        ",\n".join(f"    {i + 1} {name}" for i, name in enumerate(names)) + ";",
-    ]
-    for state in range(trees):
-        nodes = [f"{i + 1}[&rate={rng.random():.4f}]:{rng.random():.6f}" for i in range(tips)]
-        while len(nodes) > 1:
-            a = nodes.pop(rng.randrange(len(nodes)))
-            b = nodes.pop(rng.randrange(len(nodes)))
-            nodes.append(f"({a},{b}):{rng.random():.6f}")
-        root = nodes[0][: nodes[0].rfind(":")]
-        lines.append(
-            f"  tree STATE_{state * 1000} [&lnP={-9000 - rng.random():.3f}] = [&R] {root};"
-        )
-    lines.append("end;")
-    return "\n".join(lines) + "\n"
 
 
 def _median_seconds(action: Callable[[], object], repeats: int = REPEATS) -> float:
@@ -65,12 +37,13 @@ def _median_seconds(action: Callable[[], object], repeats: int = REPEATS) -> flo
 def run() -> list[dict]:
     import dendropy
 
+    from curation.demo.phylogeny import generate_tree_set
     from curation.imports.trees import import_trees, read_tree_file
     from curation.store import create_store
 
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "posterior.nex"
-        path.write_text(posterior_nexus(TREES, TIPS), encoding="utf-8")
+        path.write_text(generate_tree_set(TREES, TIPS, seed=7), encoding="utf-8")
         size = f"{TREES} trees x {TIPS} tips"
 
         ours = _median_seconds(lambda: read_tree_file(path))

@@ -22,6 +22,7 @@ from pathlib import Path
 import dendropy
 import numpy as np
 
+from curation.demo.phylogeny import random_tree
 from curation.store import create_store
 from curation.store.models import TreeSet
 from curation.trees.arrays import TreeArrays, parse_newick, to_newick
@@ -31,56 +32,18 @@ from curation.trees.stored import add_tree
 REPEATS = 3
 
 
-def random_tree(tips: int, seed: int) -> TreeArrays:
-    """A random tree by repeated splitting of a random tip (a Yule-like
-    process), with exponential branch lengths written to 6 decimals, a few
-    zero-length tips and a few polytomies, so that the checks find things."""
-    rng = np.random.default_rng(seed)
-    children: list[list[int]] = [[]]
-    leaves = [0]
-    picks = rng.integers(0, np.arange(1, tips) + 0, size=tips - 1)
-    for k in picks.tolist():
-        node = leaves[k]
-        a, b = len(children), len(children) + 1
-        children[node] = [a, b]
-        children.extend(([], []))
-        leaves[k] = a
-        leaves.append(b)
-    # a few polytomies: move a grandchild up to its grandparent
-    count = len(children)
-    parent_of = [-1] * count
-    for node, kids in enumerate(children):
-        for kid in kids:
-            parent_of[kid] = node
-    for node in rng.choice(np.arange(1, count), size=max(1, tips // 2000), replace=False).tolist():
-        up = parent_of[node]
-        if up > 0 and len(children[node]) == 2 and children[up]:
-            grand = parent_of[up]
-            if grand >= 0 and node in children[up] and len(children[up]) == 2:
-                children[up].remove(node)
-                children[grand].append(node)
-                parent_of[node] = grand
-    lengths = np.round(rng.exponential(1.0, size=count), 6)
-    lengths[rng.choice(count, size=max(1, tips // 1000), replace=False)] = 0.0
-    labels = [""] * count
-    for k, leaf in enumerate(leaves):
-        labels[leaf] = f"Taxon_{k:06d}"
-    # number in preorder
-    order: list[int] = []
-    parents: list[int] = []
-    stack = [(0, -1)]
-    while stack:
-        node, par = stack.pop()
-        order.append(node)
-        parents.append(par)
-        here = len(order) - 1
-        stack.extend((kid, here) for kid in reversed(children[node]))
-    tree = TreeArrays(
-        parent=np.asarray(parents, dtype=np.int64),
-        edge_length=lengths[order],
-        labels=[labels[k] for k in order],
+def checked_tree(tips: int, seed: int) -> TreeArrays:
+    """A random pure-birth tree, made uneven (terminal branches lengthened
+    at random) with a few polytomies and zero-length tips, so that the
+    checks find things; lengths written to 6 significant digits."""
+    return random_tree(
+        tips,
+        np.random.default_rng(seed),
+        model="pure_birth",
+        collapse=0.001,
+        tip_noise=0.5,
+        zero_tips=0.001,
     )
-    return tree
 
 
 def _median_seconds(work, repeats: int = REPEATS) -> float:  # type: ignore[no-untyped-def]
@@ -93,7 +56,7 @@ def _median_seconds(work, repeats: int = REPEATS) -> float:  # type: ignore[no-u
 
 
 def _big_tree_rows() -> list[dict]:
-    text = to_newick(random_tree(100_000, 1), precision=6)
+    text = to_newick(checked_tree(100_000, 1), precision=6)
 
     def dendropy_parse() -> None:
         dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
@@ -137,7 +100,7 @@ def _tree_set_rows() -> list[dict]:
             session.add(tree_set)
             session.flush()
             for k in range(1000):
-                tree = random_tree(500, 100 + k)
+                tree = checked_tree(500, 100 + k)
                 add_tree(
                     session, tree_set, tree, index_in_file=k, newick=to_newick(tree, precision=6)
                 )

@@ -5,16 +5,18 @@ Each ``bench_*.py`` module defines ``run() -> list[dict]`` whose rows carry
 medians of repeated runs; compare the ratios, since shared machines are
 noisy.
 
-Each module runs in a process of its own, so that a memory figure one
-benchmark takes of its process (its high-water mark) cannot include what
-an earlier benchmark used.
+Each module runs in a process of its own (``python -m bench.run --module
+bench.bench_x`` from the repository's folder, so that ``bench`` and
+``curation`` import as packages), so that a memory figure one benchmark
+takes of its process (its high-water mark) cannot include what an earlier
+benchmark used.
 
 Usage: python bench/run.py [NAME ...]   (NAME filters benchmark modules)
 """
 
 from __future__ import annotations
 
-import importlib.util
+import importlib
 import json
 import os
 import platform
@@ -23,32 +25,30 @@ import sys
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+REPO = HERE.parent
 
 
-def _run_module(path: Path) -> list[dict]:
-    """Import ``path`` and return its rows (in this process)."""
-    sys.path.insert(0, str(HERE.parent))
-    spec = importlib.util.spec_from_file_location(path.stem, path)
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module.run()
+def _run_module(name: str) -> list[dict]:
+    """Import the benchmark module ``name`` and return its rows (in this
+    process)."""
+    return importlib.import_module(name).run()  # type: ignore[no-any-return]
 
 
-def _run_in_child(path: Path) -> list[dict]:
+def _run_in_child(name: str) -> list[dict]:
     """Run one benchmark module in a fresh Python process; return its rows."""
     done = subprocess.run(
-        [sys.executable, str(Path(__file__).resolve()), "--module", str(path)],
+        [sys.executable, "-m", "bench.run", "--module", name],
         stdout=subprocess.PIPE,
         text=True,
         check=True,
+        cwd=REPO,
     )
     return json.loads(done.stdout.strip().splitlines()[-1])
 
 
 def main(argv: list[str]) -> int:
     if argv[:1] == ["--module"]:
-        rows = _run_module(Path(argv[1]))
+        rows = _run_module(argv[1])
         print(json.dumps(rows, default=lambda v: v.item() if hasattr(v, "item") else str(v)))
         return 0
     rows: list[dict] = []
@@ -56,7 +56,7 @@ def main(argv: list[str]) -> int:
         if argv and not any(name in path.stem for name in argv):
             continue
         print(f"running {path.name} ...", flush=True)
-        rows.extend(_run_in_child(path))
+        rows.extend(_run_in_child(f"bench.{path.stem}"))
     machine = f"{platform.machine()}, {os.cpu_count()} cores"
     print(f"\nmachine: {machine}, Python {platform.python_version()}")
     header = f"{'benchmark':28} {'measure':44} {'value':>12} {'unit':6} target"

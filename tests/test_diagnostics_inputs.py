@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from curation.demo.phylogeny import simulate_brownian
 from curation.diagnostics import (
     TraitDiagnostics,
     diagnose_traits,
@@ -22,7 +23,6 @@ from curation.diagnostics import (
     trait_diagnostics,
 )
 from curation.diagnostics.dense import dense_covariance, dense_gls_mean
-from curation.diagnostics.simulate import simulate_brownian
 from curation.errors import InputError, NotFoundError
 from curation.store import Store
 from curation.store.ledger import record_event
@@ -453,10 +453,10 @@ def test_brownian_data_are_rarely_called_dominated() -> None:
     # traits on a 60-tip tree and on a 6-tip tree (where one contrast of
     # five often carries half by chance); the binomial SE of a 1% rate over
     # 300 is 0.57%, so at most 3% (over 3 SE) may be called dominated.
+    from curation.demo.phylogeny import random_tree
     from curation.diagnostics.contrasts import contrast_table
     from curation.diagnostics.influence import find_dominance
     from curation.diagnostics.likelihood import BrownianPass, edge_variances
-    from curation.diagnostics.simulate import random_tree
 
     for tips in (60, 6):
         arrays = random_tree(tips, np.random.default_rng(tips))

@@ -16,6 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.stats import multivariate_normal
 
+from curation.demo.phylogeny import random_tree
 from curation.diagnostics import (
     BrownianPass,
     blomberg_k,
@@ -33,7 +34,6 @@ from curation.diagnostics.dense import (
     dense_loglik_reml,
 )
 from curation.diagnostics.fits import brownian_loglik, lambda_loglik
-from curation.diagnostics.simulate import random_tree
 from curation.trees.arrays import parse_newick, to_newick
 
 REL = 1e-8

@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from curation.demo.phylogeny import random_tree, simulate_brownian
 from curation.diagnostics import (
     blomberg_k,
     fit_brownian,
@@ -16,7 +17,6 @@ from curation.diagnostics import (
 )
 from curation.diagnostics.dense import dense_covariance
 from curation.diagnostics.fits import lambda_loglik
-from curation.diagnostics.simulate import random_tree, simulate_brownian
 from curation.trees.arrays import parse_newick
 
 

@@ -4,20 +4,17 @@ computations are checked against outside references in test_names_match)."""
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import pytest
 
+from curation.demo.pipeline import demo_name_decisions
 from curation.names.decisions import candidates_of
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
-from names_corpus import demo_decisions
 
 
 @pytest.mark.slow  # imports the whole demo scenario into a store (several seconds)
 def test_every_demo_name_is_matched_or_waits_with_its_true_tip(tmp_path: Path) -> None:
-    truth, decided = demo_decisions(tmp_path)
+    truth, decided = demo_name_decisions(tmp_path)
     merged = truth.merge(decided, on="written_name", how="left", validate="one_to_one")
     assert merged["status"].notna().all()  # every written name has a decision
     accepted = merged[merged["status"] == "accepted"]

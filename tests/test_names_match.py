@@ -4,9 +4,6 @@ reference."""
 
 from __future__ import annotations
 
-import sys
-from pathlib import Path
-
 import jellyfish
 import Levenshtein
 import numpy as np
@@ -15,6 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from curation.demo.naming import HARSH_KINDS, generate_names
 from curation.names.match import (
     MatchOptions,
     allowed_edits,
@@ -24,9 +22,6 @@ from curation.names.match import (
     match_findings,
     match_names,
 )
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
-from names_corpus import make_tips, make_written
 
 
 def _osa_reference(a: str, b: str) -> int:
@@ -244,8 +239,8 @@ def test_a_synonym_that_moves_the_genus_stays_automatic() -> None:
 
 
 def test_no_genus_change_is_accepted_by_default_on_a_corpus() -> None:
-    tips = make_tips(2000, seed=3)
-    written = make_written(tips, 1500, seed=4)["written_name"]
+    corpus = generate_names(1500, tips=2000, seed=3, kinds=HARSH_KINDS, per_genus=10)
+    tips, written = corpus.tips, pd.Series(corpus.written)
     strict = match_names(written, tips)
     loose = match_names(written, tips, options=MatchOptions(accept_genus_changes=True))
     genus = {t: t.split("_")[0] for t in tips}
@@ -361,9 +356,9 @@ def _brute_force_fuzzy(written: str, tips: list[str], options: MatchOptions) -> 
 
 def test_fuzzy_blocking_finds_what_a_double_loop_finds() -> None:
     options = MatchOptions()
-    tips = make_tips(400, seed=7)
-    written = make_written(tips, 200, seed=8)
-    result = match_names(written["written_name"], tips, options=options)
+    corpus = generate_names(200, tips=400, seed=7, kinds=HARSH_KINDS, per_genus=10)
+    tips = corpus.tips
+    result = match_names(corpus.written, tips, options=options)
     fuzzy = result[result["stage"] == "fuzzy"]
     assert len(fuzzy) > 20
     for row in fuzzy.itertuples(index=False):

@@ -9,7 +9,8 @@ The same seed gives byte-identical files.
 The scenario: the Velquiridae, an invented clade of small ground-dwelling
 animals, measured by four invented collections (Tarvonia, Kelbrook,
 Veldmar, Quessary). Nothing in it is a real taxon, person or institution.
-Benchmark-sized data comes from :mod:`curation.demo.benchmark_data`.
+Its names come from :mod:`curation.demo.naming`, its trees from
+:mod:`curation.demo.phylogeny`, like the benchmarks' data.
 """
 
 from __future__ import annotations

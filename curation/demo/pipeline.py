@@ -1,22 +1,21 @@
 """The demo: build a store from the invented sample scenario and run every
-stage that exists, end to end.
+stage, end to end.
 
-The pipeline is a list of steps. Each step looks up the library function
-it needs; a stage that is not part of this build yet is reported as
-skipped, so new stages slot in by adding one step. A step that exists and
-fails stops the demo with its error: the demo is the project's smoke test.
+The pipeline is a list of steps, each calling the library functions of
+one stage in the order the data flows; a new stage slots in by adding one
+step. A step that fails stops the demo with its error: the demo is the
+project's smoke test.
 """
 
 from __future__ import annotations
 
-import importlib
 import json
-import pkgutil
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
 from pydantic import BaseModel
 from sqlalchemy import select
 
@@ -27,12 +26,16 @@ from curation.demo.generator import (
     scenario_files,
 )
 from curation.errors import ConflictError, NotFoundError
+from curation.imports import import_darwin_core, import_synonyms, import_traits, import_trees
 from curation.imports.common import SourceInfo, read_source_bytes, sha256_of
-from curation.store import Store, create_store
+from curation.names import reconcile_names
+from curation.store import Store, create_store, current_decisions
 from curation.store.models import Source, Tree, TreeSet
 from curation.store.summary import StoreSummary, summarise_store
+from curation.traits import define_traits, flag_measurements, species_values
+from curation.trees import check_trees, lengthen_zero_tips, make_ultrametric
 
-__all__ = ["DemoReport", "StepResult", "run_demo", "DEMO_STEPS"]
+__all__ = ["DEMO_STEPS", "DemoReport", "StepResult", "demo_name_decisions", "run_demo"]
 
 DEMO_USER = "demo"
 
@@ -41,7 +44,7 @@ class StepResult(BaseModel):
     """What one step of the demo did."""
 
     step: str
-    status: str  # done | skipped
+    status: str  # done (a step that fails raises its error)
     message: str
 
 
@@ -54,33 +57,6 @@ class DemoReport(BaseModel):
     steps: list[StepResult]
     ids: dict[str, int]  # tree_set, posterior_set, tree: what the steps stored
     summary: StoreSummary
-
-
-class StageMissingError(Exception):
-    """A stage's library function is not in this build (yet)."""
-
-
-def _function(package: str, name: str) -> Callable[..., Any]:
-    """Return the library function ``name`` of a stage's ``package`` (from
-    the package itself or, before it lists it, one of its modules), or
-    raise :class:`StageMissingError`."""
-    try:
-        module = importlib.import_module(package)
-    except ModuleNotFoundError as missing:
-        # Only the stage's own package being absent means "not built yet";
-        # a stage that fails to import is a bug and must show.
-        if missing.name is None or not package.startswith(missing.name):
-            raise
-        raise StageMissingError(f"{package}.{name} is not available yet") from None
-    found = getattr(module, name, None)
-    if found is None and hasattr(module, "__path__"):
-        for info in pkgutil.iter_modules(module.__path__):
-            found = getattr(importlib.import_module(f"{package}.{info.name}"), name, None)
-            if found is not None:
-                break
-    if found is None:
-        raise StageMissingError(f"{package}.{name} is not available yet")
-    return found  # type: ignore[no-any-return]
 
 
 @dataclass
@@ -126,7 +102,6 @@ def _tree_set_of(context: DemoContext, source_id: int) -> int:
 
 
 def _step_import_trees(context: DemoContext) -> str:
-    import_trees = _function("curation.imports", "import_trees")
     tree_source = _import_once(context, import_trees, context.files.tree)
     posterior_source = _import_once(
         context, import_trees, context.files.posterior, burn_in=context.burn_in
@@ -135,7 +110,7 @@ def _step_import_trees(context: DemoContext) -> str:
     context.results["posterior_set"] = _tree_set_of(context, posterior_source)
     with context.store.reading() as session:
         tree_id = session.scalar(
-            select(Tree.id).where(Tree.tree_set_id == _need(context, "tree_set"))
+            select(Tree.id).where(Tree.tree_set_id == context.results["tree_set"])
         )
     context.results["tree"] = int(tree_id)
     return (
@@ -145,7 +120,6 @@ def _step_import_trees(context: DemoContext) -> str:
 
 
 def _step_import_synonyms(context: DemoContext) -> str:
-    import_synonyms = _function("curation.imports", "import_synonyms")
     _import_once(context, import_synonyms, context.files.synonyms)
     _import_once(context, import_synonyms, context.files.checklist)
     table, checklist = context.files.synonyms.name, context.files.checklist.name
@@ -153,7 +127,6 @@ def _step_import_synonyms(context: DemoContext) -> str:
 
 
 def _step_import_traits(context: DemoContext) -> str:
-    import_traits = _function("curation.imports", "import_traits")
     # Source 1: one row per specimen; units in the headers (body_mass_g).
     _import_once(
         context,
@@ -188,61 +161,56 @@ def _step_import_traits(context: DemoContext) -> str:
 
 
 def _step_import_darwin_core(context: DemoContext) -> str:
-    import_darwin_core = _function("curation.imports", "import_darwin_core")
     _import_once(context, import_darwin_core, context.files.darwin_core, priority=30)
     return f"Darwin Core Archive {context.files.darwin_core.name}"
 
 
 def _step_define_traits(context: DemoContext) -> str:
-    define_traits = _function("curation.traits", "define_traits")
     define_traits(context.store, context.files.trait_definitions, who=DEMO_USER)
     return f"trait definitions from {context.files.trait_definitions.name}"
 
 
 def _step_reconcile_names(context: DemoContext) -> str:
-    reconcile_names = _function("curation.names", "reconcile_names")
-    report = reconcile_names(context.store, _need(context, "tree_set"), who=DEMO_USER)
+    report = reconcile_names(context.store, context.results["tree_set"], who=DEMO_USER)
     context.results["names"] = report
     return _describe(report)
 
 
 def _step_check_trees(context: DemoContext) -> str:
-    check_trees = _function("curation.trees", "check_trees")
     parts = []
     for key in ("tree_set", "posterior_set"):
-        report = check_trees(context.store, _need(context, key))
+        report = check_trees(context.store, context.results[key])
         parts.append(_describe(report))
     return "; ".join(parts)
 
 
 def _step_flag_measurements(context: DemoContext) -> str:
-    flag_measurements = _function("curation.traits", "flag_measurements")
-    report = flag_measurements(context.store, _need(context, "tree_set"))
+    report = flag_measurements(context.store, context.results["tree_set"])
     return _describe(report)
 
 
 def _step_species_values(context: DemoContext) -> str:
-    species_values = _function("curation.traits", "species_values")
-    frame = species_values(context.store, _need(context, "tree_set"))
+    frame = species_values(context.store, context.results["tree_set"])
     context.results["species"] = frame
     return f"{len(frame)} species values"
 
 
 def _step_diagnose_traits(context: DemoContext) -> str:
-    diagnose_traits = _function("curation.diagnostics", "diagnose_traits")
-    found = diagnose_traits(context.store, _need(context, "tree"), _need(context, "species"))
+    # Imported here, as the command that runs it does: the diagnostics
+    # stage (with scipy.stats) is not loaded at start-up.
+    from curation.diagnostics import diagnose_traits
+
+    found = diagnose_traits(context.store, context.results["tree"], context.results["species"])
     return f"{len(found)} trait diagnostics"
 
 
 def _step_repair_tree(context: DemoContext) -> str:
-    make_ultrametric = _function("curation.trees", "make_ultrametric")
-    lengthen_zero_tips = _function("curation.trees", "lengthen_zero_tips")
     # Opt-in repairs, each a derived tree set and a ledger event when it
     # changes a tree: first the rounding-level deviation, then the zero and
     # near-zero tips that would make the Brownian covariance singular or
     # let one sister contrast dominate the diagnostics. A repair that
     # changes nothing stores nothing, and the next one reads what is there.
-    current = int(_need(context, "tree_set"))
+    current = int(context.results["tree_set"])
     parts = []
     for name, repair in (
         ("made ultrametric", make_ultrametric),
@@ -254,7 +222,7 @@ def _step_repair_tree(context: DemoContext) -> str:
             parts.append(f"{name} (set {current}, {report.trees_changed} of {report.trees} trees)")
         else:
             parts.append(report.message)
-    if current != _need(context, "tree_set"):
+    if current != context.results["tree_set"]:
         with context.store.reading() as session:
             tree_id = session.scalar(select(Tree.id).where(Tree.tree_set_id == current))
         context.results["repaired_tree"] = int(tree_id)
@@ -262,12 +230,14 @@ def _step_repair_tree(context: DemoContext) -> str:
 
 
 def _step_make_bundle(context: DemoContext) -> str:
-    make_bundle = _function("curation.bundle", "make_bundle")
-    options_type = _function("curation.bundle", "BundleOptions")
-    verify_bundle = _function("curation.bundle", "verify_bundle")
+    # Imported here, as the commands that run it do: the bundle stage (with
+    # pyarrow and the report) is not loaded at start-up.
+    from curation.bundle import BundleOptions, make_bundle, verify_bundle
+
     target = context.folder / "bundle"
-    tree = context.results.get("repaired_tree") or _need(context, "tree")
-    options = options_type(tree_id=tree, make_zip=True, permutations=999, seed=1)
+    # The repaired tree, or the dated tree itself when no repair changed it.
+    tree = context.results.get("repaired_tree", context.results["tree"])
+    options = BundleOptions(tree_id=tree, make_zip=True, permutations=999, seed=1)
     result = make_bundle(context.store, target, options, replace=True, who=DEMO_USER)
     report = verify_bundle(target)
     verdict = "verifies" if report.ok else f"{len(report.problems)} problems"
@@ -275,14 +245,6 @@ def _step_make_bundle(context: DemoContext) -> str:
         f"bundle in {target} ({result.tips} tips, {len(result.traits)} traits, "
         f"{result.tips_pruned} tips pruned): {verdict}"
     )
-
-
-def _need(context: DemoContext, key: str) -> Any:
-    """What an earlier step produced, or :class:`StageMissingError` when that
-    step was skipped."""
-    if key not in context.results:
-        raise StageMissingError(f"needs the {key.replace('_', ' ')} of an earlier step")
-    return context.results[key]
 
 
 def _describe(report: Any) -> str:
@@ -333,7 +295,7 @@ def run_demo(
     store: str | None = None,
 ) -> DemoReport:
     """Build the demo store ``folder/tipledger.db`` from the sample scenario
-    and run every stage this build has, in order.
+    and run every stage, in order.
 
     Args:
         folder: where the store (and the bundle) go; created if needed. A
@@ -346,11 +308,11 @@ def run_demo(
             ``folder/tipledger.db`` (created when new, reused otherwise).
 
     Returns:
-        A :class:`DemoReport`: each step done or skipped, and the counts of
-        what the store holds.
+        A :class:`DemoReport`: what each step did, and the counts of what
+        the store holds.
 
     Raises:
-        TipledgerError: a stage that exists failed on the samples.
+        TipledgerError: a stage failed on the samples.
     """
     target = Path(folder)
     target.mkdir(parents=True, exist_ok=True)
@@ -367,16 +329,9 @@ def run_demo(
             )
     burn_in = int(_tree_truth(files)["posterior"]["burn_in"])
     opened = create_store(store or target / "tipledger.db")
-    steps: list[StepResult] = []
     with opened:
         context = DemoContext(opened, files, target, burn_in)
-        for name, step in DEMO_STEPS:
-            try:
-                message = step(context)
-            except StageMissingError as missing:
-                steps.append(StepResult(step=name, status="skipped", message=str(missing)))
-                continue
-            steps.append(StepResult(step=name, status="done", message=message))
+        steps = _run_steps(context)
         summary = summarise_store(opened)
         shown = opened.display_url()
     return DemoReport(
@@ -387,6 +342,39 @@ def run_demo(
         ids={k: v for k, v in context.results.items() if isinstance(v, int)},
         summary=summary,
     )
+
+
+def demo_name_decisions(folder: str | Path) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Write the demo scenario into ``folder/samples``, run the demo's steps
+    up to and including the names stage on a new store ``folder/names.db``,
+    and return what to judge the names stage by.
+
+    Returns:
+        The scenario's name truth (``samples/truth/names.csv``: written_name,
+        true_tip ('' for none), kind ...) and the decisions in force for the
+        dated tree (:func:`curation.store.current_decisions`).
+    """
+    target = Path(folder)
+    files = generate_scenario(target / "samples")
+    burn_in = int(_tree_truth(files)["posterior"]["burn_in"])
+    with create_store(target / "names.db") as store:
+        context = DemoContext(store, files, target, burn_in)
+        _run_steps(context, until="reconcile names")
+        with store.reading() as session:
+            decided = current_decisions(session, context.results["tree_set"])
+    truth = pd.read_csv(files.truth_names, keep_default_na=False)
+    return truth, decided
+
+
+def _run_steps(context: DemoContext, *, until: str | None = None) -> list[StepResult]:
+    """Run the steps of :data:`DEMO_STEPS` in order, up to and including
+    the step named ``until`` (all by default)."""
+    steps: list[StepResult] = []
+    for name, step in DEMO_STEPS:
+        steps.append(StepResult(step=name, status="done", message=step(context)))
+        if name == until:
+            break
+    return steps
 
 
 def _tree_truth(files: ScenarioFiles) -> dict[str, Any]:

@@ -41,42 +41,6 @@ _NAME_KINDS = [
 ]
 
 
-def _write_name(
-    sp: Species, kind: str, rng: np.random.Generator, synonyms: dict[str, str]
-) -> tuple[str, str]:
-    """Return (written name, kind actually used) for species ``sp``."""
-    g, e = sp.genus, sp.epithet
-    if kind == "authority":
-        return f"{g} {e} {sp.authority}", kind
-    if kind == "underscore":
-        return f"{g}_{e}", kind
-    if kind == "tip_label" and sp.tip_label and sp.tip_label != f"{g}_{e}":
-        return sp.tip_label, kind
-    if kind == "case_spacing":
-        forms = [f"{g.upper()} {e.upper()}", f"{g.lower()}  {e}", f"{g} {e.capitalize()}"]
-        return forms[int(rng.integers(len(forms)))], kind
-    if kind == "typo":
-        if rng.random() < 0.25:
-            return f"{naming.misspell(g, rng)} {e}", kind
-        return f"{g} {naming.misspell(e, rng)}", kind
-    if kind == "spelling_variant":
-        variant = naming.spelling_variant(e, rng)
-        if variant:
-            return f"{g} {variant}", "ligature" if "æ" in variant else kind
-    if kind == "gender_variant":
-        variant = naming.gender_variant(e, sp.kind, sp.gender)
-        if variant:
-            return f"{g} {variant}", kind
-    if kind == "synonym" and sp.canonical in synonyms:
-        return synonyms[sp.canonical], kind
-    if kind == "cf_qualifier":
-        return f"{g} cf. {e}", kind
-    if kind == "subspecies":
-        rank = ["subsp.", "ssp."][int(rng.integers(2))]
-        return f"{g} {e} {rank} {naming.invent_epithet(rng, sp.gender)[0]}", kind
-    return f"{g} {e}", "exact"
-
-
 def draw_specimens(
     species: list[Species],
     extras: list[Species],
@@ -115,7 +79,17 @@ def draw_specimens(
                 kind = "synonym"
             elif sp.tip_label and sp.tip_label != sp.canonical.replace(" ", "_"):
                 kind = "tip_label" if rng.random() < 0.25 else kind
-            written, kind = _write_name(sp, kind, rng, synonyms)
+            written, kind = naming.write_name(
+                kind,
+                sp.genus,
+                sp.epithet,
+                rng,
+                gender=sp.gender,
+                epithet_class=sp.kind,
+                authority=sp.authority,
+                tip_label=sp.tip_label,
+                synonym=synonyms.get(sp.canonical),
+            )
             # One string, one truth: a corruption that happens to equal a
             # form of another species is written plainly instead.
             if written in truth and truth[written][0] != sp.canonical:

@@ -1,6 +1,8 @@
 """The tree files of the demo scenario: the dated tree with its planted
 defects and the posterior sample, written as NEXUS with TAXA and
-TRANSLATE blocks, and the ground truth of what was planted."""
+TRANSLATE blocks (their trees by the library's Newick writer), and the
+ground truth of what was planted. The trees themselves come from
+:mod:`curation.demo.phylogeny`."""
 
 from __future__ import annotations
 
@@ -8,16 +10,20 @@ from pathlib import Path
 
 import numpy as np
 
-from curation.demo.phylogeny import TimeTree, children_lists, collapse_branch, write_newick_body
+from curation.demo.phylogeny import (
+    TimeTree,
+    children_lists,
+    collapse_branch,
+    nexus_text,
+    nexus_token,
+    numbered_tips,
+    perturbed_copy,
+    time_tree_arrays,
+)
 from curation.demo.scenario import POSTERIOR_DECIMALS, ROOT_AGE, TREE_DECIMALS, VOUCHER_SUFFIX
+from curation.trees.arrays import to_newick
 
-__all__ = ["nexus_text", "numbered_tips", "perturbed_copy", "write_tree_files"]
-
-
-def _nexus_token(text: str) -> str:
-    if text.replace("_", "").replace(".", "").isalnum():
-        return text
-    return "'" + text.replace("'", "''") + "'"
+__all__ = ["write_tree_files"]
 
 
 def _plant_tree_defects(tree: TimeTree, rng: np.random.Generator) -> dict[str, list[int]]:
@@ -61,32 +67,17 @@ def _plant_tree_defects(tree: TimeTree, rng: np.random.Generator) -> dict[str, l
     }
 
 
-def nexus_text(
-    tree_lines: list[str], labels: list[str], comment: str, translate: dict[str, int]
-) -> str:
-    """A NEXUS file: a TAXA block of ``labels``, then a TREES block with a
-    TRANSLATE table (number -> label) and ``tree_lines``."""
-    lines = ["#NEXUS", "", f"[{comment}]", "", "BEGIN TAXA;"]
-    lines.append(f"    DIMENSIONS NTAX={len(labels)};")
-    lines.append("    TAXLABELS")
-    lines += [f"        {_nexus_token(label)}" for label in labels]
-    lines += ["    ;", "END;", "", "BEGIN TREES;", "    TRANSLATE"]
-    entries = [f"        {translate[label]} {_nexus_token(label)}" for label in labels]
-    lines += [entry + ("," if i < len(entries) - 1 else "") for i, entry in enumerate(entries)]
-    lines += ["    ;"]
-    lines += tree_lines
-    lines += ["END;", ""]
-    return "\n".join(lines)
+def _pair_labels(tree: TimeTree, children: list[list[int]], node: int) -> list[str]:
+    """The first tip of the first and of the last child of ``node``: two
+    tips whose most recent common ancestor it is, a stable name for it."""
 
+    def first_tip(below: int) -> int:
+        while children[below]:
+            below = children[below][0]
+        return below
 
-def numbered_tips(tree: TimeTree, translate: dict[str, int]) -> dict[int, str]:
-    """The TRANSLATE number written for each tip node."""
-    return {int(n): str(translate[tree.labels[n]]) for n in tree.tips()}
-
-
-def _pair_labels(tree: TimeTree, pairs: dict[int, tuple[int, int]], node: int) -> list[str]:
-    a, b = pairs[node]
-    return [tree.labels[a], tree.labels[b]]
+    kids = children[node]
+    return [tree.labels[first_tip(kids[0])], tree.labels[first_tip(kids[-1])]]
 
 
 def _max_spread(tree: TimeTree, decimals: int) -> float:
@@ -106,40 +97,6 @@ def _max_spread(tree: TimeTree, decimals: int) -> float:
     return float(max(spread) - min(spread))
 
 
-def perturbed_copy(base: TimeTree, rng: np.random.Generator, swaps: int, jitter: float) -> TimeTree:
-    """A copy of ``base`` as an MCMC sample might hold it: ``swaps``
-    nearest-neighbour interchanges and node ages jittered by a lognormal
-    factor of sd ``jitter``; still ultrametric."""
-    tree = base.copy()
-    for _ in range(swaps):
-        # Nearest-neighbour interchange, kept only where the heights allow it.
-        node = int(rng.integers(1, len(tree.parent)))
-        children = children_lists(tree)
-        up = int(tree.parent[node])
-        if not children[node] or up < 0:
-            continue
-        siblings = [c for c in children[up] if c != node]
-        moved = children[node][int(rng.integers(len(children[node])))]
-        sibling = siblings[0]
-        if tree.height[sibling] < tree.height[node]:
-            tree.parent[moved], tree.parent[sibling] = up, node
-    # Jitter the ages: scale each node's gap above its oldest child, from
-    # the present backwards. Ascending age is a valid order for that (every
-    # child is younger than its parent); node numbers are not, once
-    # interchanges have moved subtrees.
-    children = children_lists(tree)
-    old = tree.height.tolist()
-    new = list(old)
-    internal = [n for n in np.argsort(tree.height, kind="stable").tolist() if children[n]]
-    factors = rng.lognormal(0.0, jitter, size=len(internal)).tolist()
-    for node, factor in zip(internal, factors, strict=True):
-        kids = children[node]
-        oldest = max(old[c] for c in kids)
-        new[node] = max(new[c] for c in kids) + (old[node] - oldest) * factor
-    tree.height = np.asarray(new)
-    return tree
-
-
 def write_tree_files(
     folder: Path, rng: np.random.Generator, base: TimeTree, posterior_trees: int
 ) -> tuple[TimeTree, dict[str, object]]:
@@ -148,11 +105,11 @@ def write_tree_files(
 
     main = base.copy()
     planted = _plant_tree_defects(main, rng)
-    body, pairs = write_newick_body(
-        main, decimals=TREE_DECIMALS, names=numbered_tips(main, translate)
+    newick = to_newick(
+        time_tree_arrays(main, labels=numbered_tips(main, translate)), decimals=TREE_DECIMALS
     )
     text = nexus_text(
-        [f"    TREE dated_consensus = [&R] {body};"],
+        [f"    TREE dated_consensus = {newick}"],
         labels,
         "Invented demo scenario: dated tree of the Velquiridae (fictional clade). Ages in Myr.",
         translate,
@@ -167,15 +124,15 @@ def write_tree_files(
         "decimals": TREE_DECIMALS,
         "max_root_to_tip_spread": round(_max_spread(main, TREE_DECIMALS), 10),
         "polytomies": [
-            {"tips": _pair_labels(main, pairs, n), "children": len(children[n])}
+            {"tips": _pair_labels(main, children, n), "children": len(children[n])}
             for n in planted["polytomies"]
         ],
         "zero_length_internal": [
-            {"tips": _pair_labels(main, pairs, n)} for n in planted["zero_internal"]
+            {"tips": _pair_labels(main, children, n)} for n in planted["zero_internal"]
         ],
         "zero_length_terminal": sorted(main.labels[n] for n in planted["zero_terminal"]),
         "voucher_labels": sorted(label for label in labels if VOUCHER_SUFFIX.search(label)),
-        "quoted_labels": sorted(label for label in labels if _nexus_token(label) != label),
+        "quoted_labels": sorted(label for label in labels if nexus_token(label) != label),
     }
 
     burn_in = max(1, posterior_trees // 5)
@@ -207,12 +164,11 @@ def write_tree_files(
             for n in range(1, len(tree.parent))
             if tree.alive[n]
         }
-        body, _ = write_newick_body(
-            tree, decimals=POSTERIOR_DECIMALS, names=numbered_tips(tree, translate), comments=rates
-        )
+        arrays = time_tree_arrays(tree, labels=numbered_tips(tree, translate), comments=rates)
+        newick = to_newick(arrays, decimals=POSTERIOR_DECIMALS, comments=True)
         name = f"STATE_{index * 10000}"
         names.append(name)
-        lines.append(f"    TREE {name} [&lnP={lnp:.2f}] = [&R] {body};")
+        lines.append(f"    TREE {name} [&lnP={lnp:.2f}] = {newick}")
     text = nexus_text(
         lines,
         labels,

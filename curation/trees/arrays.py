@@ -15,12 +15,13 @@ quotes and have doubled quotes ('') turned into one, and bracketed comments
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from curation.errors import FormatError
+from curation.errors import FormatError, InputError
 
 __all__ = [
     "TreeArrays",
@@ -306,27 +307,59 @@ def written_decimals(number: str) -> int:
     return max(places, 0)
 
 
-def to_newick(tree: TreeArrays, *, lengths: bool = True, precision: int | None = None) -> str:
+def to_newick(
+    tree: TreeArrays,
+    *,
+    lengths: bool = True,
+    precision: int | None = None,
+    decimals: int | None = None,
+    comments: bool = False,
+) -> str:
     """Write ``tree`` as Newick text, quoting only labels that need it.
 
     Args:
         lengths: write branch lengths (missing ones are left out).
         precision: significant digits for lengths; ``None`` writes
             Python's shortest round-trip form (repr).
+        decimals: digits after the point for every length, in fixed
+            notation (``decimals=3`` writes ``1.500``); instead of
+            ``precision``.
+        comments: write each node's bracketed comments
+            (:attr:`TreeArrays.comments`) after its label.
 
     Returns:
         One line ending in ';', children in stored order; [&R] or [&U]
         first when the rooting is known.
+
+    Raises:
+        InputError: both ``precision`` and ``decimals`` are given.
     """
+    if precision is not None and decimals is not None:
+        raise InputError(
+            "give the lengths either significant digits or decimal places, not both",
+            field="decimals",
+            hint="leave precision or decimals as None",
+        )
     n = tree.node_count
     children: list[list[int]] = [[] for _ in range(n)]
-    for node in range(1, n):
-        children[int(tree.parent[node])].append(node)
+    for node, parent in enumerate(tree.parent.tolist()[1:], start=1):
+        children[parent].append(node)
 
-    def fmt(value: float) -> str:
-        if precision is None:
-            return repr(float(value))
-        return f"{value:.{precision}g}"
+    if decimals is not None:
+        spec = f".{decimals}f"
+    elif precision is not None:
+        spec = f".{precision}g"
+    else:
+        spec = ""
+    # Lengths formatted once, from Python floats (much faster than NumPy
+    # scalars one by one).
+    length_text = [
+        ""
+        if not lengths or math.isnan(value)
+        else ":" + (format(value, spec) if spec else repr(value))
+        for value in tree.edge_length.tolist()
+    ]
+    notes = tree.comments if comments else {}
 
     parts: list[str] = []
     # Iterative walk: deep trees (caterpillars of 100,000 tips) must not
@@ -348,9 +381,9 @@ def to_newick(tree: TreeArrays, *, lengths: bool = True, precision: int | None =
         if kids:
             parts.append(")")
         parts.append(quote_label(tree.labels[node]))
-        length = tree.edge_length[node]
-        if lengths and not np.isnan(length):
-            parts.append(":" + fmt(length))
+        if node in notes:
+            parts.append("".join(notes[node]))
+        parts.append(length_text[node])
     prefix = {True: "[&R] ", False: "[&U] ", None: ""}[tree.rooted]
     return prefix + "".join(parts) + ";"
 
